@@ -1,0 +1,57 @@
+"""One place for numba options and the kernel cache location.
+
+numba's on-disk cache keys a function on the source of *its own* file only, so
+editing a helper in another module can leave a stale cached caller.  We
+therefore point ``NUMBA_CACHE_DIR`` at a folder keyed on a hash of every
+source file of the package: any edit to any kernel starts a fresh cache.
+Set ``NUMBA_CACHE_DIR`` yourself to override.
+"""
+from __future__ import annotations
+
+import hashlib
+import os
+from pathlib import Path
+
+_PKG = Path(__file__).resolve().parent
+
+
+def _source_hash() -> str:
+    h = hashlib.sha256()
+    for path in sorted(_PKG.rglob("*.py")):
+        h.update(path.relative_to(_PKG).as_posix().encode())
+        h.update(path.read_bytes())
+    return h.hexdigest()[:16]
+
+
+def _cache_dir() -> str:
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    return os.path.join(base, "refrender", "numba-" + _source_hash())
+
+
+if "NUMBA_CACHE_DIR" not in os.environ:
+    os.environ["NUMBA_CACHE_DIR"] = _cache_dir()
+
+import numba  # noqa: E402  (must follow the environment set-up)
+
+numba.config.CACHE_DIR = os.environ["NUMBA_CACHE_DIR"]
+
+#: Options of every kernel.  ``error_model='numpy'`` makes 1/0 give inf
+#: instead of raising; no fastmath, so NaN/inf checks on radiance still work
+#: and results do not depend on reassociation.
+KERNEL_OPTIONS = dict(cache=True, nogil=True, error_model="numpy")
+
+#: Small helpers called from hot loops (inlined to avoid call overhead).
+INLINE_OPTIONS = dict(cache=True, nogil=True, error_model="numpy")
+
+
+def kernel(fn=None, **extra):
+    """``numba.njit`` with the project's kernel options."""
+    opts = dict(KERNEL_OPTIONS, **extra)
+    if fn is None:
+        return lambda f: numba.njit(**opts)(f)
+    return numba.njit(**opts)(fn)
+
+
+def inline(fn):
+    """``numba.njit`` for a small, always-inlined helper."""
+    return numba.njit(**INLINE_OPTIONS)(fn)

@@ -1,0 +1,1 @@
+"""Shapes, intersection, the BVH and the scene-to-arrays compiler."""

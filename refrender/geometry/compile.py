@@ -1,0 +1,286 @@
+"""Scene objects -> flat typed arrays for the kernels.
+
+This is the only bridge between the Python scene model
+(:mod:`refrender.scene.model`) and the numba kernels: after it, a scene is a
+:class:`SceneArrays` (geometry, BVH, objects, materials) plus a
+:class:`LightArrays` (the emitters and their selection probabilities).
+"""
+from __future__ import annotations
+
+import math
+from typing import NamedTuple
+
+import numpy as np
+
+from ..scene import model as m
+from .bvh import build_bvh
+from .intersect import DISK, RECTANGLE, SPHERE, TRIANGLE
+
+#: BT.709 / sRGB relative-luminance weights of linear RGB (Rec. ITU-R BT.709-6).
+LUMINANCE = np.array([0.2126, 0.7152, 0.0722])
+
+# material type codes (row 0 of the material table is always black)
+MAT_BLACK = 0
+MAT_DIFFUSE = 1
+MAT_PARAMS = 8
+
+# light type codes
+LIGHT_SURFACE = 0
+LIGHT_POINT = 1
+LIGHT_DIRECTIONAL = 2
+LIGHT_ENVIRONMENT = 3
+
+# camera projection codes
+CAM_PERSPECTIVE = 0
+CAM_ORTHOGRAPHIC = 1
+CAM_THIN_LENS = 2
+_PROJECTIONS = {"perspective": CAM_PERSPECTIVE, "orthographic": CAM_ORTHOGRAPHIC,
+                "thin_lens": CAM_THIN_LENS}
+
+
+class SceneArrays(NamedTuple):
+    """Geometry and materials, primitives in BVH order."""
+    node_bounds: np.ndarray    # (m, 6) float64
+    node_offset: np.ndarray    # (m,) int32
+    node_count: np.ndarray     # (m,) int32
+    prim_type: np.ndarray      # (n,) int32, see geometry.intersect
+    prim_geom: np.ndarray      # (n, 9) float64
+    prim_object: np.ndarray    # (n,) int32, index into scene.objects
+    prim_index: np.ndarray     # (n,) int64, primitive index within its object
+    prim_scale: np.ndarray     # (n,) float64, coordinate magnitude (ray offsets)
+    prim_area: np.ndarray      # (n,) float64, m^2
+    obj_material: np.ndarray   # (k,) int32, row of the material table
+    obj_emission: np.ndarray   # (k, 3) float64 radiance
+    obj_two_sided: np.ndarray  # (k,) int32 (1 = emits from both sides)
+    mat_type: np.ndarray       # (q,) int32
+    mat_params: np.ndarray     # (q, MAT_PARAMS) float64
+    center: np.ndarray         # (3,) centre of the bounding sphere of all geometry
+    radius: float              # its radius (> 0)
+
+
+class LightArrays(NamedTuple):
+    """Emitters and their selection distribution (proportional to power)."""
+    light_type: np.ndarray     # (L,) int32
+    light_prim: np.ndarray     # (L,) int32 primitive (surface emitters), else -1
+    light_data: np.ndarray     # (L, 6) float64, per type (see build_lights)
+    light_cdf: np.ndarray      # (L + 1,) float64, light_cdf[-1] == 1
+    light_pmf: np.ndarray      # (L,) float64 selection probabilities
+    prim_light_pmf: np.ndarray  # (n,) selection probability of primitive k as an emitter
+    env: np.ndarray            # (4,) radiance rgb of the environment and its pmf
+
+
+def _shape_records(shape):
+    """(types, geom rows, areas) of one object's primitives, in object order."""
+    if isinstance(shape, m.Sphere):
+        g = np.zeros((1, 9))
+        g[0, :3] = shape.center
+        g[0, 3] = shape.radius
+        return np.array([SPHERE]), g, np.array([4.0 * math.pi * shape.radius ** 2])
+    if isinstance(shape, m.Rectangle):
+        g = np.concatenate([shape.origin, shape.edge1, shape.edge2])[None, :]
+        area = np.linalg.norm(np.cross(shape.edge1, shape.edge2))
+        return np.array([RECTANGLE]), g, np.array([area])
+    if isinstance(shape, m.Disk):
+        g = np.zeros((1, 9))
+        g[0, :3] = shape.center
+        g[0, 3:6] = shape.normal
+        g[0, 6] = shape.radius
+        return np.array([DISK]), g, np.array([math.pi * shape.radius ** 2])
+    if isinstance(shape, m.TriangleMesh):
+        p = np.asarray(shape.positions, dtype=np.float64)
+        idx = np.asarray(shape.indices, dtype=np.int64)
+        a, b, c = p[idx[:, 0]], p[idx[:, 1]], p[idx[:, 2]]
+        g = np.concatenate([a, b - a, c - a], axis=1)
+        area = 0.5 * np.linalg.norm(np.cross(b - a, c - a), axis=1)
+        return np.full(len(idx), TRIANGLE), g, area
+    raise TypeError(f"unknown shape {type(shape).__name__}")
+
+
+def _bounds(types, g):
+    """Per-primitive AABBs and coordinate magnitudes, vectorised by type."""
+    n = len(types)
+    bmin = np.empty((n, 3))
+    bmax = np.empty((n, 3))
+    scale = np.empty(n)
+    for code in (TRIANGLE, RECTANGLE):
+        sel = types == code
+        if not sel.any():
+            continue
+        o, e1, e2 = g[sel, 0:3], g[sel, 3:6], g[sel, 6:9]
+        corners = [o, o + e1, o + e2] + ([o + e1 + e2] if code == RECTANGLE else [])
+        stack = np.stack(corners)
+        bmin[sel] = stack.min(axis=0)
+        bmax[sel] = stack.max(axis=0)
+        scale[sel] = np.abs(stack).max(axis=(0, 2))
+    sel = types == SPHERE
+    if sel.any():
+        c, r = g[sel, 0:3], g[sel, 3:4]
+        bmin[sel] = c - r
+        bmax[sel] = c + r
+        scale[sel] = np.abs(c).max(axis=1) + r[:, 0]
+    sel = types == DISK
+    if sel.any():
+        c, nrm, r = g[sel, 0:3], g[sel, 3:6], g[sel, 6:7]
+        ext = r * np.sqrt(np.clip(1.0 - nrm * nrm, 0.0, 1.0))
+        bmin[sel] = c - ext
+        bmax[sel] = c + ext
+        scale[sel] = np.abs(c).max(axis=1) + r[:, 0]
+    return bmin, bmax, scale
+
+
+def _materials(scene: m.Scene):
+    names = list(scene.materials)
+    mat_type = np.zeros(len(names) + 1, dtype=np.int32)
+    params = np.zeros((len(names) + 1, MAT_PARAMS))
+    for i, name in enumerate(names, start=1):
+        mat = scene.materials[name]
+        if mat.type == "diffuse":
+            mat_type[i] = MAT_DIFFUSE
+            params[i, 0:3] = mat.params["albedo"]
+        else:
+            raise TypeError(f"material type {mat.type!r} has no kernel")
+    index = {name: i for i, name in enumerate(names, start=1)}
+    return index, mat_type, params
+
+
+def compile_scene(scene: m.Scene) -> SceneArrays:
+    """Flatten the scene's geometry and build the BVH."""
+    index, mat_type, mat_params = _materials(scene)
+    types, geoms, areas, objs, local = [], [], [], [], []
+    obj_material = np.zeros(len(scene.objects), dtype=np.int32)
+    obj_emission = np.zeros((len(scene.objects), 3))
+    obj_two_sided = np.zeros(len(scene.objects), dtype=np.int32)
+    for i, obj in enumerate(scene.objects):
+        t, g, a = _shape_records(obj.shape)
+        types.append(t)
+        geoms.append(g)
+        areas.append(a)
+        objs.append(np.full(len(t), i, dtype=np.int32))
+        local.append(np.arange(len(t), dtype=np.int64))
+        obj_material[i] = index[obj.material] if obj.material is not None else 0
+        obj_emission[i] = obj.emission
+        obj_two_sided[i] = 1 if obj.two_sided else 0
+    if types:
+        types = np.concatenate(types).astype(np.int32)
+        geoms = np.concatenate(geoms)
+        areas = np.concatenate(areas)
+        objs = np.concatenate(objs)
+        local = np.concatenate(local)
+    else:
+        types = np.zeros(0, np.int32)
+        geoms = np.zeros((0, 9))
+        areas = np.zeros(0)
+        objs = np.zeros(0, np.int32)
+        local = np.zeros(0, np.int64)
+    bmin, bmax, scale = _bounds(types, geoms)
+    order, nb, noff, ncnt = build_bvh(bmin, bmax)
+    if len(types):
+        lo, hi = bmin.min(axis=0), bmax.max(axis=0)
+        center = 0.5 * (lo + hi)
+        radius = float(max(0.5 * np.linalg.norm(hi - lo), 1e-300))
+    else:
+        center, radius = np.zeros(3), 1.0
+    c = np.ascontiguousarray
+    return SceneArrays(
+        node_bounds=c(nb), node_offset=c(noff), node_count=c(ncnt),
+        prim_type=c(types[order]), prim_geom=c(geoms[order]),
+        prim_object=c(objs[order]), prim_index=c(local[order]),
+        prim_scale=c(scale[order]), prim_area=c(areas[order]),
+        obj_material=obj_material, obj_emission=obj_emission, obj_two_sided=obj_two_sided,
+        mat_type=mat_type, mat_params=mat_params, center=center, radius=radius)
+
+
+def light_power(scene: m.Scene, arrays: SceneArrays):
+    """Estimated emitted power (luminance-weighted, W) of every emitter.
+
+    Surface primitive: pi * A * Y(L_e), doubled when two-sided.
+    Point light: 4 pi * Y(I).  Directional light: pi R^2 * Y(E) and uniform
+    environment: 4 pi^2 R^2 * Y(L), with R the radius of the scene's bounding
+    sphere (the power that crosses that sphere).  Only the *selection
+    probabilities* use these numbers, so their accuracy affects noise, never
+    the expected value.
+    """
+    rows = []
+    R2 = arrays.radius ** 2
+    emissive = np.nonzero((arrays.obj_emission[arrays.prim_object] > 0).any(axis=1))[0]
+    for k in emissive:
+        obj = arrays.prim_object[k]
+        y = float(LUMINANCE @ arrays.obj_emission[obj])
+        sides = 2.0 if arrays.obj_two_sided[obj] else 1.0
+        data = np.zeros(6)
+        data[:3] = arrays.obj_emission[obj]
+        rows.append((LIGHT_SURFACE, int(k), data, math.pi * arrays.prim_area[k] * y * sides))
+    for light in scene.lights:
+        data = np.zeros(6)
+        if isinstance(light, m.PointLight):
+            data[:3], data[3:] = light.position, light.intensity
+            rows.append((LIGHT_POINT, -1, data, 4.0 * math.pi * float(LUMINANCE @ light.intensity)))
+        elif isinstance(light, m.DirectionalLight):
+            data[:3], data[3:] = light.direction, light.irradiance
+            rows.append((LIGHT_DIRECTIONAL, -1, data, math.pi * R2 * float(LUMINANCE @ light.irradiance)))
+        elif isinstance(light, m.EnvironmentLight):
+            data[:3] = light.radiance
+            rows.append((LIGHT_ENVIRONMENT, -1, data,
+                         4.0 * math.pi ** 2 * R2 * float(LUMINANCE @ light.radiance)))
+        else:
+            raise TypeError(f"unknown light {type(light).__name__}")
+    return rows
+
+
+def build_lights(scene: m.Scene, arrays: SceneArrays, strategy: str) -> LightArrays:
+    """Emitter table and power-proportional selection distribution.
+
+    With ``strategy == "bsdf"`` only delta lights (point, directional) are
+    sampled explicitly, since BSDF sampling can never hit them; every other
+    emitter is then found by BSDF-sampled rays alone.
+
+    ``light_data`` rows: surface emitter: radiance rgb; point: position,
+    intensity; directional: travel direction, irradiance; environment:
+    radiance.
+    """
+    rows = light_power(scene, arrays)
+    if strategy == "bsdf":
+        rows = [r for r in rows if r[0] in (LIGHT_POINT, LIGHT_DIRECTIONAL)]
+    rows = [r for r in rows if r[3] > 0.0]
+    n = len(rows)
+    light_type = np.array([r[0] for r in rows], dtype=np.int32)
+    light_prim = np.array([r[1] for r in rows], dtype=np.int32)
+    light_data = np.array([r[2] for r in rows]).reshape(n, 6)
+    power = np.array([r[3] for r in rows], dtype=np.float64)
+    pmf = power / power.sum() if n else power
+    cdf = np.zeros(n + 1)
+    cdf[1:] = np.cumsum(pmf)
+    if n:
+        cdf[-1] = 1.0
+    prim_pmf = np.zeros(len(arrays.prim_type))
+    env = np.zeros(4)
+    for i, r in enumerate(rows):
+        if r[0] == LIGHT_SURFACE:
+            prim_pmf[r[1]] = pmf[i]
+        elif r[0] == LIGHT_ENVIRONMENT:
+            env[3] = pmf[i]
+    for light in scene.lights:
+        if isinstance(light, m.EnvironmentLight):
+            env[:3] = light.radiance
+    return LightArrays(light_type, light_prim, np.ascontiguousarray(light_data), cdf, pmf,
+                       prim_pmf, env)
+
+
+def camera_array(scene: m.Scene) -> np.ndarray:
+    """Camera as a float64 vector for the kernels.
+
+    [0:12] rows 0-2 of the camera-to-world matrix, [12] projection code,
+    [13] tan(fov_y / 2), [14] view height, [15] aperture radius,
+    [16] focus distance, [17] full film width, [18] full film height.
+    """
+    cam = scene.camera
+    v = np.zeros(19)
+    v[0:12] = np.asarray(cam.to_world, dtype=np.float64)[:3, :].ravel()
+    v[12] = _PROJECTIONS[cam.projection]
+    v[13] = math.tan(math.radians(cam.fov_y) / 2.0)
+    v[14] = cam.view_height
+    v[15] = cam.aperture_radius
+    v[16] = cam.focus_distance
+    v[17] = scene.film.width
+    v[18] = scene.film.height
+    return v

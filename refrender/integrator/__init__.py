@@ -1,0 +1,1 @@
+"""The path-tracing integrator."""

@@ -1,0 +1,385 @@
+"""Unidirectional path tracing with next-event estimation and MIS.
+
+Estimator (per camera sample): the radiance arriving along the camera ray,
+computed as a sum over path vertices.  At every vertex with a non-delta BSDF
+and ``strategy`` ``nee`` or ``mis``, one light is chosen with probability
+proportional to its power and sampled (next-event estimation); the BSDF is
+then sampled to continue the path.  Emission found by a BSDF-sampled ray is
+weighted 1 (``bsdf``, or after a delta lobe / at the camera), 0 (``nee``), or
+by the power heuristic with the light-sampling pdf of the emitter that was
+hit (``mis``; Veach & Guibas, "Optimally Combining Sampling Techniques for
+Monte Carlo Rendering", SIGGRAPH 1995).  Delta lights are always sampled
+explicitly.
+
+Path length: ``max_bounces`` counts scattering events (-1 = unlimited).
+Russian roulette: once a path has scattered k >= rr_start times it continues
+with probability q = min(0.95, max_c throughput_c) and its throughput is
+divided by q, which keeps the estimator unbiased.
+
+Random dimensions of one path: 0-3 camera (pixel position, lens), then 8 per
+vertex: light choice, 2 light sample, 2 BSDF sample, roulette.
+"""
+import math
+
+from numba import prange
+
+from .._jit import inline, kernel
+from ..geometry.intersect import SPHERE, is_planar, surface_point
+from ..geometry.traverse import closest_hit, occluded
+from ..materials.bsdf import MAT_BLACK, bsdf_eval, bsdf_pdf, bsdf_sample
+from ..sampling.lights import (environment_pdf, environment_sample, pdf_emitter, sample_emitter)
+from ..sampling.rng import path_key, uniform
+from ..sampling.warp import sample_concentric_disk
+
+STRATEGY_BSDF = 0
+STRATEGY_NEE = 1
+STRATEGY_MIS = 2
+
+LIGHT_SURFACE = 0
+LIGHT_POINT = 1
+LIGHT_DIRECTIONAL = 2
+LIGHT_ENVIRONMENT = 3
+
+DIMS_CAMERA = 4
+DIMS_PER_VERTEX = 8
+#: relative size of the ray-origin offset (times the coordinate magnitude)
+OFFSET_SCALE = 2.0 ** -32
+#: shadow rays stop this fraction short of the sampled point
+SHADOW_SHORTEN = 1e-9
+#: a path this long ends (probability of reaching it under roulette ~ 0)
+SAFETY_DEPTH = 1 << 16
+
+
+@inline
+def power_heuristic(a, b):
+    a2 = a * a
+    b2 = b * b
+    if a2 + b2 <= 0.0:
+        return 0.0
+    if math.isinf(a2):
+        return 1.0
+    return a2 / (a2 + b2)
+
+
+@inline
+def camera_ray(cam, px, py, u3, u4):
+    """World-space ray through film position (px, py) (pixels, full frame)."""
+    w = cam[17]
+    h = cam[18]
+    aspect = w / h
+    sx = 2.0 * px / w - 1.0
+    sy = 1.0 - 2.0 * py / h
+    proj = cam[12]
+    if proj == 1.0:       # orthographic
+        half = 0.5 * cam[14]
+        ox, oy, oz = sx * half * aspect, sy * half, 0.0
+        dx, dy, dz = 0.0, 0.0, -1.0
+    else:
+        t = cam[13]
+        dx, dy, dz = sx * t * aspect, sy * t, -1.0
+        ox, oy, oz = 0.0, 0.0, 0.0
+        if proj == 2.0:   # thin lens: focus plane at distance cam[16] along -Z
+            lx, ly = sample_concentric_disk(u3, u4)
+            lx *= cam[15]
+            ly *= cam[15]
+            f = cam[16]
+            dx, dy, dz = dx * f - lx, dy * f - ly, dz * f
+            ox, oy = lx, ly
+    wx = cam[0] * ox + cam[1] * oy + cam[2] * oz + cam[3]
+    wy = cam[4] * ox + cam[5] * oy + cam[6] * oz + cam[7]
+    wz = cam[8] * ox + cam[9] * oy + cam[10] * oz + cam[11]
+    vx = cam[0] * dx + cam[1] * dy + cam[2] * dz
+    vy = cam[4] * dx + cam[5] * dy + cam[6] * dz
+    vz = cam[8] * dx + cam[9] * dy + cam[10] * dz
+    inv = 1.0 / math.sqrt(vx * vx + vy * vy + vz * vz)
+    return wx, wy, wz, vx * inv, vy * inv, vz * inv
+
+
+@inline
+def select_light(cdf, u):
+    """Index i with cdf[i] <= u < cdf[i+1] (binary search); pmf is cdf[i+1]-cdf[i]."""
+    lo = 0
+    hi = cdf.shape[0] - 2
+    while lo < hi:
+        mid = (lo + hi + 1) // 2
+        if cdf[mid] <= u:
+            lo = mid
+        else:
+            hi = mid - 1
+    return lo
+
+
+@kernel
+def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
+    """One camera sample.  Returns (r, g, b, rays traced)."""
+    ox, oy, oz, dx, dy, dz = camera_ray(cam, px, py, uniform(key, 2), uniform(key, 3))
+    tr = 1.0
+    tg = 1.0
+    tb = 1.0
+    lr = 0.0
+    lg = 0.0
+    lb = 0.0
+    rays = 0
+    depth = 0
+    skip = -1
+    prev_x = ox
+    prev_y = oy
+    prev_z = oz
+    prev_pdf = 0.0
+    prev_delta = True
+    n_lights = L.light_pmf.shape[0]
+    env = L.env
+    has_env = env[0] > 0.0 or env[1] > 0.0 or env[2] > 0.0
+    while True:
+        prim, t, hu, hv = closest_hit(S.node_bounds, S.node_offset, S.node_count,
+                                      S.prim_type, S.prim_geom, ox, oy, oz, dx, dy, dz,
+                                      0.0, math.inf, skip)
+        rays += 1
+        if prim < 0:
+            if has_env:
+                if prev_delta or strategy == STRATEGY_BSDF:
+                    w = 1.0
+                elif strategy == STRATEGY_NEE:
+                    w = 0.0
+                else:
+                    w = power_heuristic(prev_pdf, env[3] * environment_pdf())
+                lr += tr * env[0] * w
+                lg += tg * env[1] * w
+                lb += tb * env[2] * w
+            break
+        kind = S.prim_type[prim]
+        g = S.prim_geom[prim]
+        x, y, z, nx, ny, nz = surface_point(kind, g, ox, oy, oz, dx, dy, dz, t, hu, hv)
+        obj = S.prim_object[prim]
+        cos_in = dx * nx + dy * ny + dz * nz
+        # emission
+        em = S.obj_emission[obj]
+        if (em[0] > 0.0 or em[1] > 0.0 or em[2] > 0.0) and (cos_in < 0.0 or S.obj_two_sided[obj] == 1):
+            if prev_delta or strategy == STRATEGY_BSDF:
+                w = 1.0
+            elif strategy == STRATEGY_NEE:
+                w = 0.0
+            else:
+                pl = L.prim_light_pmf[prim] * pdf_emitter(
+                    kind, g, S.prim_area[prim], mode, prev_x, prev_y, prev_z, x, y, z, nx, ny, nz)
+                w = power_heuristic(prev_pdf, pl)
+            lr += tr * em[0] * w
+            lg += tg * em[1] * w
+            lb += tb * em[2] * w
+        if max_bounces >= 0 and depth >= max_bounces:
+            break
+        mat = S.obj_material[obj]
+        mkind = S.mat_type[mat]
+        if mkind == MAT_BLACK:
+            break
+        mp = S.mat_params[mat]
+        # shading frame on the side of the incoming ray
+        if cos_in > 0.0:
+            nx = -nx
+            ny = -ny
+            nz = -nz
+        wox = -dx
+        woy = -dy
+        woz = -dz
+        eps = OFFSET_SCALE * (max(abs(x), abs(y), abs(z)) + S.prim_scale[prim])
+        sx = x + eps * nx
+        sy = y + eps * ny
+        sz = z + eps * nz
+        self_skip = prim if is_planar(kind) else -1
+        dim = DIMS_CAMERA + depth * DIMS_PER_VERTEX
+        # ---- next-event estimation
+        if n_lights > 0:
+            li = select_light(L.light_cdf, uniform(key, dim))
+            pmf = L.light_pmf[li]
+            ltype = L.light_type[li]
+            ld = L.light_data[li]
+            u1 = uniform(key, dim + 1)
+            u2 = uniform(key, dim + 2)
+            er = 0.0
+            eg = 0.0
+            eb = 0.0
+            pdf_l = 0.0
+            delta = False
+            visible = False
+            if ltype == LIGHT_SURFACE:
+                lp = L.light_prim[li]
+                lk = S.prim_type[lp]
+                lg_ = S.prim_geom[lp]
+                qx, qy, qz, mx, my, mz, pdf_dir = sample_emitter(
+                    lk, lg_, S.prim_area[lp], mode, x, y, z, u1, u2)
+                if pdf_dir > 0.0 and not math.isinf(pdf_dir):
+                    wix = qx - x
+                    wiy = qy - y
+                    wiz = qz - z
+                    dist = math.sqrt(wix * wix + wiy * wiy + wiz * wiz)
+                    if dist > 0.0:
+                        wix /= dist
+                        wiy /= dist
+                        wiz /= dist
+                        cos_l = -(wix * mx + wiy * my + wiz * mz)
+                        lobj = S.prim_object[lp]
+                        front = cos_l > 0.0
+                        # a sphere hides its far side from an outside point
+                        if lk == SPHERE and not front:
+                            cx = x - lg_[0]
+                            cy = y - lg_[1]
+                            cz = z - lg_[2]
+                            if cx * cx + cy * cy + cz * cz > lg_[3] * lg_[3]:
+                                cos_l = 0.0
+                        if cos_l != 0.0 and (front or S.obj_two_sided[lobj] == 1):
+                            lem = S.obj_emission[lobj]
+                            er = lem[0]
+                            eg = lem[1]
+                            eb = lem[2]
+                            pdf_l = pmf * pdf_dir
+                            sdx = qx - sx
+                            sdy = qy - sy
+                            sdz = qz - sz
+                            sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
+                            rays += 1
+                            visible = not occluded(
+                                S.node_bounds, S.node_offset, S.node_count, S.prim_type,
+                                S.prim_geom, sx, sy, sz, sdx / sd, sdy / sd, sdz / sd,
+                                0.0, sd * (1.0 - SHADOW_SHORTEN), self_skip, lp)
+            elif ltype == LIGHT_POINT:
+                wix = ld[0] - x
+                wiy = ld[1] - y
+                wiz = ld[2] - z
+                d2 = wix * wix + wiy * wiy + wiz * wiz
+                dist = math.sqrt(d2)
+                if dist > 0.0:
+                    wix /= dist
+                    wiy /= dist
+                    wiz /= dist
+                    er = ld[3] / d2
+                    eg = ld[4] / d2
+                    eb = ld[5] / d2
+                    pdf_l = pmf
+                    delta = True
+                    sdx = ld[0] - sx
+                    sdy = ld[1] - sy
+                    sdz = ld[2] - sz
+                    sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
+                    rays += 1
+                    visible = not occluded(
+                        S.node_bounds, S.node_offset, S.node_count, S.prim_type, S.prim_geom,
+                        sx, sy, sz, sdx / sd, sdy / sd, sdz / sd,
+                        0.0, sd * (1.0 - SHADOW_SHORTEN), self_skip, -1)
+            elif ltype == LIGHT_DIRECTIONAL:
+                wix = -ld[0]
+                wiy = -ld[1]
+                wiz = -ld[2]
+                er = ld[3]
+                eg = ld[4]
+                eb = ld[5]
+                pdf_l = pmf
+                delta = True
+                rays += 1
+                visible = not occluded(
+                    S.node_bounds, S.node_offset, S.node_count, S.prim_type, S.prim_geom,
+                    sx, sy, sz, wix, wiy, wiz, 0.0, math.inf, self_skip, -1)
+            else:
+                wix, wiy, wiz = environment_sample(u1, u2)
+                er = env[0]
+                eg = env[1]
+                eb = env[2]
+                pdf_l = pmf * environment_pdf()
+                rays += 1
+                visible = not occluded(
+                    S.node_bounds, S.node_offset, S.node_count, S.prim_type, S.prim_geom,
+                    sx, sy, sz, wix, wiy, wiz, 0.0, math.inf, self_skip, -1)
+            if visible and pdf_l > 0.0:
+                cos_i = wix * nx + wiy * ny + wiz * nz
+                if cos_i > 0.0:
+                    fr, fg, fb = bsdf_eval(mkind, mp, nx, ny, nz, wox, woy, woz, wix, wiy, wiz)
+                    if delta or strategy == STRATEGY_NEE:
+                        w = 1.0
+                    else:
+                        w = power_heuristic(
+                            pdf_l, bsdf_pdf(mkind, mp, nx, ny, nz, wox, woy, woz, wix, wiy, wiz))
+                    c = cos_i * w / pdf_l
+                    lr += tr * fr * er * c
+                    lg += tg * fg * eg * c
+                    lb += tb * fb * eb * c
+        # ---- continue the path by sampling the BSDF
+        wix, wiy, wiz, fr, fg, fb, pdf_b, is_delta = bsdf_sample(
+            mkind, mp, nx, ny, nz, wox, woy, woz, uniform(key, dim + 3), uniform(key, dim + 4))
+        if not (pdf_b > 0.0):
+            break
+        cos_i = abs(wix * nx + wiy * ny + wiz * nz)
+        tr *= fr * cos_i / pdf_b
+        tg *= fg * cos_i / pdf_b
+        tb *= fb * cos_i / pdf_b
+        depth += 1
+        if depth >= rr_start:
+            q = min(0.95, max(tr, tg, tb))
+            if not (uniform(key, dim + 5) < q):
+                break
+            tr /= q
+            tg /= q
+            tb /= q
+        if depth >= SAFETY_DEPTH:
+            break
+        prev_x = x
+        prev_y = y
+        prev_z = z
+        prev_pdf = pdf_b
+        prev_delta = is_delta
+        # transmission would start on the other side
+        if wix * nx + wiy * ny + wiz * nz < 0.0:
+            ox = x - eps * nx
+            oy = y - eps * ny
+            oz = z - eps * nz
+        else:
+            ox = sx
+            oy = sy
+            oz = sz
+        dx = wix
+        dy = wiy
+        dz = wiz
+        skip = self_skip
+    return lr, lg, lb, rays
+
+
+@kernel(parallel=True)
+def render_pass(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
+                x0, y0, x1, y1, width, first_sample, n_samples, row_order,
+                acc_sum, acc_sq, acc_n, row_rays, row_bad):
+    """Add samples first_sample .. first_sample + n_samples - 1 of every pixel.
+
+    Each row of the window is one independent work item; inside it, pixels and
+    samples are visited in a fixed order, so the accumulators do not depend on
+    the thread count.  ``acc_sum``/``acc_sq`` (h, w, 3) float64 sum of values
+    and of squares, ``acc_n`` (h, w) int64 valid samples; non-finite samples
+    are excluded and counted in ``row_bad``.
+    """
+    for ii in prange(row_order.shape[0]):
+        r = row_order[ii]
+        yy = y0 + r
+        rays = 0
+        bad = 0
+        for xx in range(x0, x1):
+            c = xx - x0
+            pixel = yy * width + xx
+            for s in range(first_sample, first_sample + n_samples):
+                key = path_key(seed, pixel, s)
+                px = xx + uniform(key, 0)
+                py = yy + uniform(key, 1)
+                vr, vg, vb, nr = trace_path(S, L, cam, key, px, py, max_bounces, rr_start,
+                                            strategy, mode)
+                rays += nr
+                if math.isfinite(vr) and math.isfinite(vg) and math.isfinite(vb):
+                    acc_sum[r, c, 0] += vr
+                    acc_sum[r, c, 1] += vg
+                    acc_sum[r, c, 2] += vb
+                    acc_sq[r, c, 0] += vr * vr
+                    acc_sq[r, c, 1] += vg * vg
+                    acc_sq[r, c, 2] += vb * vb
+                    acc_n[r, c] += 1
+                else:
+                    bad += 1
+        row_rays[r] += rays
+        row_bad[r] += bad
+    return 0
+
+

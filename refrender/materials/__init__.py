@@ -1,0 +1,1 @@
+"""Material models (BSDFs), each with its sampler and pdf."""

@@ -1,0 +1,178 @@
+"""Render results: float64 accumulators, derived mean and variance, merge, save."""
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .errors import RenderError
+
+#: metadata keys that must agree for two results to be merged
+ESTIMATOR_KEYS = ("scene_sha256", "seed", "strategy", "light_sampling", "max_bounces",
+                  "rr_start", "width", "height", "window")
+
+
+@dataclass
+class Result:
+    """The outcome of a render (or a merge of renders).
+
+    Attributes
+    ----------
+    sum, sum_sq : (H, W, 3) float64
+        Sums of the sample values and of their squares per pixel and channel.
+    count : (H, W) int64
+        Finite samples per pixel (non-finite ones are excluded and counted in
+        ``stats["nonfinite_samples"]``).
+    sample_ranges : list of (start, stop)
+        Half-open ranges of sample indices contained, sorted, disjoint.
+    meta : dict
+        Estimator settings and scene identity (see ``ESTIMATOR_KEYS``).
+    stats : dict
+        ``rays``, ``seconds``, ``mrays_per_s``, ``nonfinite_samples``.
+    """
+    sum: np.ndarray
+    sum_sq: np.ndarray
+    count: np.ndarray
+    sample_ranges: list
+    meta: dict
+    stats: dict = field(default_factory=dict)
+
+    @property
+    def spp(self) -> int:
+        """Samples per pixel in this result."""
+        return int(sum(b - a for a, b in self.sample_ranges))
+
+    @property
+    def mean(self) -> np.ndarray:
+        """(H, W, 3) float64 mean radiance of each pixel (W m^-2 sr^-1)."""
+        n = np.maximum(self.count, 1)[..., None]
+        return self.sum / n
+
+    @property
+    def variance(self) -> np.ndarray:
+        """(H, W, 3) float64 variance of each pixel's mean (standard error squared).
+
+        Unbiased sample variance divided by n; inf where a pixel has < 2 samples.
+        """
+        n = self.count[..., None].astype(np.float64)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s2 = (self.sum_sq - self.sum * self.sum / n) / (n - 1.0)
+            var = np.maximum(s2, 0.0) / n
+        return np.where(n >= 2, var, np.inf)
+
+    @property
+    def window(self) -> tuple:
+        return tuple(self.meta["window"])
+
+    def relative_error(self, floor: float = 1e-3) -> np.ndarray:
+        """(H, W) relative standard error of the luminance of each pixel.
+
+        Pixels darker than ``floor`` times the image's mean luminance use that
+        floor as the denominator, so black pixels do not dominate summaries.
+        """
+        from .geometry.compile import LUMINANCE
+        y = self.mean @ LUMINANCE
+        vy = self.variance @ (LUMINANCE ** 2)
+        ref = max(float(np.mean(np.abs(y))) * floor, 1e-300)
+        return np.sqrt(vy) / np.maximum(np.abs(y), ref)
+
+    def noise_summary(self) -> dict:
+        """Mean and 95th percentile of the per-pixel relative standard error."""
+        rel = self.relative_error()
+        rel = rel[np.isfinite(rel)]
+        if rel.size == 0:
+            return {"rel_error_mean": float("nan"), "rel_error_p95": float("nan")}
+        return {"rel_error_mean": float(rel.mean()),
+                "rel_error_p95": float(np.percentile(rel, 95))}
+
+    def save(self, path, *, preview=None, exposure: float = 0.0, state: bool = True) -> None:
+        """Write the EXR (mean + variance layer + metadata) and its state file.
+
+        The state file (``out.state`` beside ``out.exr``) holds the float64
+        accumulators that ``merge`` and resume read.  Every file is written
+        under a temporary name and renamed.
+        """
+        from .io import save_state, state_path_for, write_exr, write_png_preview
+        path = Path(path)
+        meta = self.metadata()
+        write_exr(path, self.mean, self.variance, meta)
+        if state:
+            save_state(state_path_for(path),
+                       {"sum": self.sum, "sum_sq": self.sum_sq, "count": self.count}, meta)
+        if preview is not None:
+            write_png_preview(preview, self.mean, exposure=exposure)
+
+    def metadata(self) -> dict:
+        from . import __version__
+        meta = dict(self.meta)
+        meta.update(program="refrender", version=__version__, spp=self.spp,
+                    sample_ranges=[list(r) for r in self.sample_ranges],
+                    stats=dict(self.stats), noise=self.noise_summary())
+        return meta
+
+    @classmethod
+    def from_state(cls, path) -> "Result":
+        """Load a result from its state file."""
+        from .io import load_state
+        arrays, meta = load_state(path)
+        try:
+            res = cls(sum=arrays["sum"], sum_sq=arrays["sum_sq"], count=arrays["count"],
+                      sample_ranges=[tuple(r) for r in meta["sample_ranges"]],
+                      meta={k: meta[k] for k in ESTIMATOR_KEYS}, stats=dict(meta.get("stats", {})))
+        except KeyError as exc:
+            raise RenderError(f"{path}: state file lacks {exc.args[0]!r}") from None
+        return res
+
+
+def _ranges_overlap(ranges) -> bool:
+    ranges = sorted(ranges)
+    return any(b0 > a1 for (_, b0), (a1, _) in zip(ranges, ranges[1:]))
+
+
+def merge(results) -> Result:
+    """Merge renders of disjoint sample ranges of the same scene and settings.
+
+    The result equals one render of the union of the samples to float64
+    rounding.  Raises RenderError on mismatched scenes or settings, or on
+    overlapping sample ranges (which would count samples twice).
+    """
+    results = list(results)
+    if not results:
+        raise RenderError("merge: nothing to merge")
+    first = results[0]
+    for i, r in enumerate(results[1:], start=1):
+        for key in ESTIMATOR_KEYS:
+            if r.meta.get(key) != first.meta.get(key):
+                raise RenderError(f"merge: input {i} differs in {key}: "
+                                  f"{r.meta.get(key)!r} != {first.meta.get(key)!r}")
+    ranges = sorted(tuple(x) for r in results for x in r.sample_ranges)
+    if _ranges_overlap(ranges):
+        raise RenderError(f"merge: sample ranges overlap: {ranges}")
+    order = sorted(range(len(results)), key=lambda i: min(results[i].sample_ranges))
+    s = np.zeros_like(first.sum)
+    sq = np.zeros_like(first.sum_sq)
+    n = np.zeros_like(first.count)
+    for i in order:
+        s += results[i].sum
+        sq += results[i].sum_sq
+        n += results[i].count
+    stats = {"rays": sum(int(r.stats.get("rays", 0)) for r in results),
+             "seconds": sum(float(r.stats.get("seconds", 0.0)) for r in results),
+             "nonfinite_samples": sum(int(r.stats.get("nonfinite_samples", 0)) for r in results)}
+    stats["mrays_per_s"] = stats["rays"] / stats["seconds"] / 1e6 if stats["seconds"] > 0 else 0.0
+    merged = [list(ranges[0])]
+    for a, b in ranges[1:]:
+        if a == merged[-1][1]:
+            merged[-1][1] = b
+        else:
+            merged.append([a, b])
+    return Result(s, sq, n, [tuple(r) for r in merged], dict(first.meta), stats)
+
+
+def warn_nonfinite(count: int) -> None:
+    if count:
+        warnings.warn(f"{count} non-finite samples were excluded from the estimate; "
+                      "any is a bug in refrender, please report the scene", RuntimeWarning,
+                      stacklevel=3)

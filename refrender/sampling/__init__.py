@@ -1,0 +1,1 @@
+"""Random numbers and sampling routines (each beside its pdf)."""

@@ -1,0 +1,122 @@
+"""Validated, immutable scene objects.
+
+`refrender.scene.load.load_scene` turns a JSON document into these objects;
+everything downstream (`refrender.geometry.compile`) reads only them.  All
+vectors are float64 numpy arrays; all shapes are already in world space.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class Camera:
+    projection: str                 # "perspective" | "orthographic" | "thin_lens"
+    to_world: np.ndarray            # (4, 4) camera-to-world; camera looks down -Z, +Y up, +X right
+    fov_y: float = 40.0             # degrees, full vertical field of view
+    view_height: float = 1.0        # orthographic: height of the view in scene units
+    aperture_radius: float = 0.0    # thin lens
+    focus_distance: float = 1.0     # thin lens
+
+
+@dataclass(frozen=True)
+class Film:
+    width: int
+    height: int
+    crop: tuple[int, int, int, int] | None = None   # [x0, y0, x1, y1), pixels
+
+    @property
+    def window(self) -> tuple[int, int, int, int]:
+        """The rendered pixel window (x0, y0, x1, y1), half-open."""
+        return self.crop if self.crop is not None else (0, 0, self.width, self.height)
+
+
+@dataclass(frozen=True)
+class Material:
+    type: str                       # "diffuse" (core); extensions add more
+    params: dict[str, Any] = field(default_factory=dict)   # "albedo": (3,) float64 for diffuse
+
+
+@dataclass(frozen=True)
+class Sphere:
+    center: np.ndarray
+    radius: float
+
+
+@dataclass(frozen=True)
+class Rectangle:
+    origin: np.ndarray              # a corner
+    edge1: np.ndarray
+    edge2: np.ndarray               # perpendicular to edge1; front normal = normalize(edge1 x edge2)
+
+
+@dataclass(frozen=True)
+class Disk:
+    center: np.ndarray
+    normal: np.ndarray              # unit, front side
+    radius: float
+
+
+@dataclass(frozen=True)
+class TriangleMesh:
+    positions: np.ndarray           # (n, 3) float64, world space (transform applied)
+    indices: np.ndarray             # (m, 3) int64
+    source: str = "triangles"       # "triangles" or the mesh file path
+
+
+Shape = Sphere | Rectangle | Disk | TriangleMesh
+
+
+@dataclass(frozen=True)
+class Object:
+    shape: Shape
+    material: str | None            # key into Scene.materials; None = black
+    emission: np.ndarray            # (3,) radiance W m^-2 sr^-1
+    two_sided: bool = False
+
+
+@dataclass(frozen=True)
+class PointLight:
+    position: np.ndarray
+    intensity: np.ndarray           # (3,) W sr^-1
+
+
+@dataclass(frozen=True)
+class DirectionalLight:
+    direction: np.ndarray           # unit, the way the light travels
+    irradiance: np.ndarray          # (3,) W m^-2 on a surface facing the light
+
+
+@dataclass(frozen=True)
+class EnvironmentLight:
+    radiance: np.ndarray            # (3,) uniform radiance from every direction
+
+
+Light = PointLight | DirectionalLight | EnvironmentLight
+
+
+@dataclass(frozen=True)
+class RenderSettings:
+    spp: int = 64
+    seed: int = 0
+    max_bounces: int | None = None
+    rr_start: int = 3
+    strategy: str = "mis"           # "mis" | "nee" | "bsdf"
+    light_sampling: str = "solid_angle"   # "solid_angle" | "area"
+
+
+@dataclass(frozen=True)
+class Scene:
+    camera: Camera
+    film: Film
+    materials: dict[str, Material]
+    objects: list[Object]
+    lights: list[Light]
+    render: RenderSettings
+    sha256: str                     # hash of the canonical document and every file it references
+    source_path: Path | None = None
+    document: dict | None = None    # the validated JSON document (for metadata)
