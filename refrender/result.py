@@ -67,25 +67,12 @@ class Result:
         return tuple(self.meta["window"])
 
     def relative_error(self, floor: float = 1e-3) -> np.ndarray:
-        """(H, W) relative standard error of the luminance of each pixel.
-
-        Pixels darker than ``floor`` times the image's mean luminance use that
-        floor as the denominator, so black pixels do not dominate summaries.
-        """
-        from .geometry.compile import LUMINANCE
-        y = self.mean @ LUMINANCE
-        vy = self.variance @ (LUMINANCE ** 2)
-        ref = max(float(np.mean(np.abs(y))) * floor, 1e-300)
-        return np.sqrt(vy) / np.maximum(np.abs(y), ref)
+        """(H, W) relative standard error of each pixel's luminance (see relative_error)."""
+        return relative_error(self.mean, self.variance, floor)
 
     def noise_summary(self) -> dict:
         """Mean and 95th percentile of the per-pixel relative standard error."""
-        rel = self.relative_error()
-        rel = rel[np.isfinite(rel)]
-        if rel.size == 0:
-            return {"rel_error_mean": float("nan"), "rel_error_p95": float("nan")}
-        return {"rel_error_mean": float(rel.mean()),
-                "rel_error_p95": float(np.percentile(rel, 95))}
+        return noise_summary(self.mean, self.variance)
 
     def save(self, path, *, preview=None, exposure: float = 0.0, state: bool = True) -> None:
         """Write the EXR (mean + variance layer + metadata) and its state file.
@@ -124,6 +111,30 @@ class Result:
         except KeyError as exc:
             raise RenderError(f"{path}: state file lacks {exc.args[0]!r}") from None
         return res
+
+
+def relative_error(mean, variance, floor: float = 1e-3) -> np.ndarray:
+    """(H, W) relative standard error of the BT.709 luminance of each pixel.
+
+    Pixels darker than ``floor`` times the image's mean luminance use that
+    floor as the denominator, so that black pixels do not dominate summaries.
+    """
+    from .geometry.compile import LUMINANCE
+    y = np.asarray(mean, dtype=np.float64) @ LUMINANCE
+    vy = np.asarray(variance, dtype=np.float64) @ (LUMINANCE ** 2)
+    ref = max(float(np.mean(np.abs(y))) * floor, 1e-300)
+    return np.sqrt(vy) / np.maximum(np.abs(y), ref)
+
+
+def noise_summary(mean, variance) -> dict:
+    """Mean and 95th percentile of the per-pixel relative standard error
+    (floor: 1e-3 of the mean luminance); None when no pixel has an estimate
+    (fewer than 2 samples per pixel)."""
+    rel = relative_error(mean, variance)
+    rel = rel[np.isfinite(rel)]
+    if rel.size == 0:
+        return {"rel_error_mean": None, "rel_error_p95": None}
+    return {"rel_error_mean": float(rel.mean()), "rel_error_p95": float(np.percentile(rel, 95))}
 
 
 def _ranges_overlap(ranges) -> bool:
