@@ -40,8 +40,13 @@ numba.config.CACHE_DIR = os.environ["NUMBA_CACHE_DIR"]
 #: and results do not depend on reassociation.
 KERNEL_OPTIONS = dict(cache=True, nogil=True, error_model="numpy")
 
-#: Small helpers called from hot loops (inlined to avoid call overhead).
+#: Small helpers: compiled separately, LLVM inlines them where it pays.
 INLINE_OPTIONS = dict(cache=True, nogil=True, error_model="numpy")
+
+#: The innermost traversal helpers that take arrays: inlined at the numba IR
+#: level, which removes per-call reference counting of the array arguments
+#: (measured 1.9x on traversal).  Costs compile time, so used sparingly.
+HOT_OPTIONS = dict(cache=True, nogil=True, error_model="numpy", inline="always")
 
 
 def kernel(fn=None, **extra):
@@ -53,5 +58,10 @@ def kernel(fn=None, **extra):
 
 
 def inline(fn):
-    """``numba.njit`` for a small, always-inlined helper."""
+    """``numba.njit`` for a small helper."""
     return numba.njit(**INLINE_OPTIONS)(fn)
+
+
+def hot(fn):
+    """``numba.njit`` for a helper of the traversal inner loop (IR-inlined)."""
+    return numba.njit(**HOT_OPTIONS)(fn)

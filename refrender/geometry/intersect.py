@@ -12,13 +12,14 @@ disk       2     cx cy cz nx ny nz r - -
 triangle   3     ax ay az e1x e1y e1z e2x e2y e2z  (e1=b-a, e2=c-a)
 =========  ====  ===========================================
 
-Each intersector returns (t, u, v): the ray parameter of the nearest hit in
+Intersectors read row ``k`` of ``G`` directly (no row views in the hot loop)
+and return (t, u, v): the ray parameter of the nearest hit in
 (tmin, tmax), or inf, and two surface coordinates (barycentrics b1, b2 for a
 triangle, edge fractions for a rectangle, 0 otherwise).
 """
 import math
 
-from .._jit import inline
+from .._jit import hot, inline
 
 SPHERE = 0
 RECTANGLE = 1
@@ -28,14 +29,14 @@ TRIANGLE = 3
 INF = math.inf
 
 
-@inline
-def intersect_sphere(g, ox, oy, oz, dx, dy, dz, tmin, tmax):
+@hot
+def intersect_sphere(G, k, ox, oy, oz, dx, dy, dz, tmin, tmax):
     """Sphere; the quadratic in the precise form of Haines et al.,
     "Precision Improvements for Ray/Sphere Intersection", Ray Tracing Gems 2019."""
-    fx = ox - g[0]
-    fy = oy - g[1]
-    fz = oz - g[2]
-    r = g[3]
+    fx = ox - G[k, 0]
+    fy = oy - G[k, 1]
+    fz = oz - G[k, 2]
+    r = G[k, 3]
     a = dx * dx + dy * dy + dz * dz
     b = -(fx * dx + fy * dy + fz * dz)           # b' = -f.d
     # |f - (f.d/a) d|^2 computed directly: loses no precision when |f| >> r
@@ -62,26 +63,26 @@ def intersect_sphere(g, ox, oy, oz, dx, dy, dz, tmin, tmax):
     return INF, 0.0, 0.0
 
 
-@inline
-def intersect_rectangle(g, ox, oy, oz, dx, dy, dz, tmin, tmax):
+@hot
+def intersect_rectangle(G, k, ox, oy, oz, dx, dy, dz, tmin, tmax):
     """Parallelogram with perpendicular edges e1, e2 from corner o."""
-    e1x, e1y, e1z = g[3], g[4], g[5]
-    e2x, e2y, e2z = g[6], g[7], g[8]
+    e1x, e1y, e1z = G[k, 3], G[k, 4], G[k, 5]
+    e2x, e2y, e2z = G[k, 6], G[k, 7], G[k, 8]
     nx = e1y * e2z - e1z * e2y
     ny = e1z * e2x - e1x * e2z
     nz = e1x * e2y - e1y * e2x
     denom = nx * dx + ny * dy + nz * dz
     if denom == 0.0:
         return INF, 0.0, 0.0
-    wx = g[0] - ox
-    wy = g[1] - oy
-    wz = g[2] - oz
+    wx = G[k, 0] - ox
+    wy = G[k, 1] - oy
+    wz = G[k, 2] - oz
     t = (nx * wx + ny * wy + nz * wz) / denom
     if not (t > tmin and t < tmax):
         return INF, 0.0, 0.0
-    px = ox + t * dx - g[0]
-    py = oy + t * dy - g[1]
-    pz = oz + t * dz - g[2]
+    px = ox + t * dx - G[k, 0]
+    py = oy + t * dy - G[k, 1]
+    pz = oz + t * dz - G[k, 2]
     u = (px * e1x + py * e1y + pz * e1z) / (e1x * e1x + e1y * e1y + e1z * e1z)
     if u < 0.0 or u > 1.0:
         return INF, 0.0, 0.0
@@ -91,30 +92,30 @@ def intersect_rectangle(g, ox, oy, oz, dx, dy, dz, tmin, tmax):
     return t, u, v
 
 
-@inline
-def intersect_disk(g, ox, oy, oz, dx, dy, dz, tmin, tmax):
+@hot
+def intersect_disk(G, k, ox, oy, oz, dx, dy, dz, tmin, tmax):
     """Disk of centre c, unit normal n, radius r."""
-    nx, ny, nz = g[3], g[4], g[5]
+    nx, ny, nz = G[k, 3], G[k, 4], G[k, 5]
     denom = nx * dx + ny * dy + nz * dz
     if denom == 0.0:
         return INF, 0.0, 0.0
-    t = (nx * (g[0] - ox) + ny * (g[1] - oy) + nz * (g[2] - oz)) / denom
+    t = (nx * (G[k, 0] - ox) + ny * (G[k, 1] - oy) + nz * (G[k, 2] - oz)) / denom
     if not (t > tmin and t < tmax):
         return INF, 0.0, 0.0
-    px = ox + t * dx - g[0]
-    py = oy + t * dy - g[1]
-    pz = oz + t * dz - g[2]
-    if px * px + py * py + pz * pz > g[6] * g[6]:
+    px = ox + t * dx - G[k, 0]
+    py = oy + t * dy - G[k, 1]
+    pz = oz + t * dz - G[k, 2]
+    if px * px + py * py + pz * pz > G[k, 6] * G[k, 6]:
         return INF, 0.0, 0.0
     return t, 0.0, 0.0
 
 
-@inline
-def intersect_triangle(g, ox, oy, oz, dx, dy, dz, tmin, tmax):
+@hot
+def intersect_triangle(G, k, ox, oy, oz, dx, dy, dz, tmin, tmax):
     """Moller & Trumbore, "Fast, minimum storage ray-triangle intersection",
     JGT 2(1), 1997.  Returns (t, b1, b2)."""
-    e1x, e1y, e1z = g[3], g[4], g[5]
-    e2x, e2y, e2z = g[6], g[7], g[8]
+    e1x, e1y, e1z = G[k, 3], G[k, 4], G[k, 5]
+    e2x, e2y, e2z = G[k, 6], G[k, 7], G[k, 8]
     px = dy * e2z - dz * e2y
     py = dz * e2x - dx * e2z
     pz = dx * e2y - dy * e2x
@@ -122,9 +123,9 @@ def intersect_triangle(g, ox, oy, oz, dx, dy, dz, tmin, tmax):
     if det == 0.0:
         return INF, 0.0, 0.0
     inv = 1.0 / det
-    sx = ox - g[0]
-    sy = oy - g[1]
-    sz = oz - g[2]
+    sx = ox - G[k, 0]
+    sy = oy - G[k, 1]
+    sz = oz - G[k, 2]
     b1 = (sx * px + sy * py + sz * pz) * inv
     if b1 < 0.0 or b1 > 1.0:
         return INF, 0.0, 0.0
@@ -140,16 +141,16 @@ def intersect_triangle(g, ox, oy, oz, dx, dy, dz, tmin, tmax):
     return t, b1, b2
 
 
-@inline
-def intersect_prim(kind, g, ox, oy, oz, dx, dy, dz, tmin, tmax):
+@hot
+def intersect_prim(kind, G, k, ox, oy, oz, dx, dy, dz, tmin, tmax):
     """Dispatch on the primitive type code."""
     if kind == TRIANGLE:
-        return intersect_triangle(g, ox, oy, oz, dx, dy, dz, tmin, tmax)
+        return intersect_triangle(G, k, ox, oy, oz, dx, dy, dz, tmin, tmax)
     if kind == SPHERE:
-        return intersect_sphere(g, ox, oy, oz, dx, dy, dz, tmin, tmax)
+        return intersect_sphere(G, k, ox, oy, oz, dx, dy, dz, tmin, tmax)
     if kind == RECTANGLE:
-        return intersect_rectangle(g, ox, oy, oz, dx, dy, dz, tmin, tmax)
-    return intersect_disk(g, ox, oy, oz, dx, dy, dz, tmin, tmax)
+        return intersect_rectangle(G, k, ox, oy, oz, dx, dy, dz, tmin, tmax)
+    return intersect_disk(G, k, ox, oy, oz, dx, dy, dz, tmin, tmax)
 
 
 @inline

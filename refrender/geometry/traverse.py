@@ -4,21 +4,21 @@ import math
 import numpy as np
 from numba import prange
 
-from .._jit import inline, kernel
+from .._jit import hot, inline, kernel
 from .bvh import TRAVERSAL_STACK
 from .intersect import intersect_prim
 
 INF = math.inf
 
 
-@inline
+@hot
 def _safe_inv(d):
     if abs(d) < 1e-300:
         return 1e300 if d >= 0.0 else -1e300
     return 1.0 / d
 
 
-@inline
+@hot
 def _box_entry(nb, i, ox, oy, oz, ix, iy, iz, tmax):
     """Entry distance of the ray into box i (slab test), or inf if missed."""
     t0 = (nb[i, 0] - ox) * ix
@@ -42,16 +42,16 @@ def _box_entry(nb, i, ox, oy, oz, ix, iy, iz, tmax):
 
 
 @inline
-def closest_hit(nb, noff, ncnt, prim_type, prim_geom, ox, oy, oz, dx, dy, dz,
+def closest_hit(nb, noff, ncnt, prim_type, prim_geom, stack, ox, oy, oz, dx, dy, dz,
                 tmin, tmax, skip):
     """Nearest hit with t in (tmin, tmax), ignoring primitive ``skip`` (-1: none).
 
+    ``stack`` is scratch space of TRAVERSAL_STACK int32 (see new_stack).
     Returns (prim, t, u, v); prim = -1 on a miss.
     """
     ix = _safe_inv(dx)
     iy = _safe_inv(dy)
     iz = _safe_inv(dz)
-    stack = np.empty(TRAVERSAL_STACK, dtype=np.int32)
     best = -1
     bt = tmax
     bu = 0.0
@@ -67,7 +67,7 @@ def closest_hit(nb, noff, ncnt, prim_type, prim_geom, ox, oy, oz, dx, dy, dz,
             for k in range(start, start + cnt):
                 if k == skip:
                     continue
-                t, u, v = intersect_prim(prim_type[k], prim_geom[k], ox, oy, oz,
+                t, u, v = intersect_prim(prim_type[k], prim_geom, k, ox, oy, oz,
                                          dx, dy, dz, tmin, bt)
                 if t < bt:
                     bt = t
@@ -109,13 +109,12 @@ def closest_hit(nb, noff, ncnt, prim_type, prim_geom, ox, oy, oz, dx, dy, dz,
 
 
 @inline
-def occluded(nb, noff, ncnt, prim_type, prim_geom, ox, oy, oz, dx, dy, dz,
+def occluded(nb, noff, ncnt, prim_type, prim_geom, stack, ox, oy, oz, dx, dy, dz,
              tmin, tmax, skip_a, skip_b):
     """True if any primitive other than skip_a/skip_b is hit with t in (tmin, tmax)."""
     ix = _safe_inv(dx)
     iy = _safe_inv(dy)
     iz = _safe_inv(dz)
-    stack = np.empty(TRAVERSAL_STACK, dtype=np.int32)
     if _box_entry(nb, 0, ox, oy, oz, ix, iy, iz, tmax) == INF:
         return False
     stack[0] = 0
@@ -129,7 +128,7 @@ def occluded(nb, noff, ncnt, prim_type, prim_geom, ox, oy, oz, dx, dy, dz,
             for k in range(start, start + cnt):
                 if k == skip_a or k == skip_b:
                     continue
-                t, u, v = intersect_prim(prim_type[k], prim_geom[k], ox, oy, oz,
+                t, u, v = intersect_prim(prim_type[k], prim_geom, k, ox, oy, oz,
                                          dx, dy, dz, tmin, tmax)
                 if t < tmax:
                     return True
@@ -144,16 +143,28 @@ def occluded(nb, noff, ncnt, prim_type, prim_geom, ox, oy, oz, dx, dy, dz,
     return False
 
 
+@inline
+def new_stack():
+    """Scratch traversal stack (allocate once per path or per batch of rays)."""
+    return np.empty(TRAVERSAL_STACK, dtype=np.int32)
+
+
+BATCH = 4096
+
+
 @kernel(parallel=True)
 def trace_batch(nb, noff, ncnt, prim_type, prim_geom, origins, directions,
                 out_prim, out_t, out_u, out_v):
-    """Closest hits of many rays (parallel over rays; each ray is independent)."""
-    for i in prange(origins.shape[0]):
-        p, t, u, v = closest_hit(nb, noff, ncnt, prim_type, prim_geom,
-                                 origins[i, 0], origins[i, 1], origins[i, 2],
-                                 directions[i, 0], directions[i, 1], directions[i, 2],
-                                 0.0, INF, -1)
-        out_prim[i] = p
-        out_t[i] = t
-        out_u[i] = u
-        out_v[i] = v
+    """Closest hits of many rays (parallel over blocks of rays; each ray is independent)."""
+    n = origins.shape[0]
+    for b in prange((n + BATCH - 1) // BATCH):
+        stack = new_stack()
+        for i in range(b * BATCH, min(n, (b + 1) * BATCH)):
+            p, t, u, v = closest_hit(nb, noff, ncnt, prim_type, prim_geom, stack,
+                                     origins[i, 0], origins[i, 1], origins[i, 2],
+                                     directions[i, 0], directions[i, 1], directions[i, 2],
+                                     0.0, INF, -1)
+            out_prim[i] = p
+            out_t[i] = t
+            out_u[i] = u
+            out_v[i] = v

@@ -25,7 +25,7 @@ from numba import prange
 
 from .._jit import inline, kernel
 from ..geometry.intersect import SPHERE, is_planar, surface_point
-from ..geometry.traverse import closest_hit, occluded
+from ..geometry.traverse import closest_hit, new_stack, occluded
 from ..materials.bsdf import MAT_BLACK, bsdf_eval, bsdf_pdf, bsdf_sample
 from ..sampling.lights import (environment_pdf, environment_sample, pdf_emitter, sample_emitter)
 from ..sampling.rng import path_key, uniform
@@ -129,10 +129,11 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
     prev_delta = True
     n_lights = L.light_pmf.shape[0]
     env = L.env
+    stack = new_stack()
     has_env = env[0] > 0.0 or env[1] > 0.0 or env[2] > 0.0
     while True:
         prim, t, hu, hv = closest_hit(S.node_bounds, S.node_offset, S.node_count,
-                                      S.prim_type, S.prim_geom, ox, oy, oz, dx, dy, dz,
+                                      S.prim_type, S.prim_geom, stack, ox, oy, oz, dx, dy, dz,
                                       0.0, math.inf, skip)
         rays += 1
         if prim < 0:
@@ -219,11 +220,13 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
                         cos_l = -(wix * mx + wiy * my + wiz * mz)
                         lobj = S.prim_object[lp]
                         front = cos_l > 0.0
-                        # a sphere hides its far side from an outside point
+                        # a sphere hides its far side from an outside point (judged
+                        # from the offset origin: a point on the sphere itself is
+                        # then on the side its shading normal faces)
                         if lk == SPHERE and not front:
-                            cx = x - lg_[0]
-                            cy = y - lg_[1]
-                            cz = z - lg_[2]
+                            cx = sx - lg_[0]
+                            cy = sy - lg_[1]
+                            cz = sz - lg_[2]
                             if cx * cx + cy * cy + cz * cz > lg_[3] * lg_[3]:
                                 cos_l = 0.0
                         if cos_l != 0.0 and (front or S.obj_two_sided[lobj] == 1):
@@ -239,7 +242,7 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
                             rays += 1
                             visible = not occluded(
                                 S.node_bounds, S.node_offset, S.node_count, S.prim_type,
-                                S.prim_geom, sx, sy, sz, sdx / sd, sdy / sd, sdz / sd,
+                                S.prim_geom, stack, sx, sy, sz, sdx / sd, sdy / sd, sdz / sd,
                                 0.0, sd * (1.0 - SHADOW_SHORTEN), self_skip, lp)
             elif ltype == LIGHT_POINT:
                 wix = ld[0] - x
@@ -263,7 +266,7 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
                     rays += 1
                     visible = not occluded(
                         S.node_bounds, S.node_offset, S.node_count, S.prim_type, S.prim_geom,
-                        sx, sy, sz, sdx / sd, sdy / sd, sdz / sd,
+                        stack, sx, sy, sz, sdx / sd, sdy / sd, sdz / sd,
                         0.0, sd * (1.0 - SHADOW_SHORTEN), self_skip, -1)
             elif ltype == LIGHT_DIRECTIONAL:
                 wix = -ld[0]
@@ -277,7 +280,7 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
                 rays += 1
                 visible = not occluded(
                     S.node_bounds, S.node_offset, S.node_count, S.prim_type, S.prim_geom,
-                    sx, sy, sz, wix, wiy, wiz, 0.0, math.inf, self_skip, -1)
+                    stack, sx, sy, sz, wix, wiy, wiz, 0.0, math.inf, self_skip, -1)
             else:
                 wix, wiy, wiz = environment_sample(u1, u2)
                 er = env[0]
@@ -287,7 +290,7 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
                 rays += 1
                 visible = not occluded(
                     S.node_bounds, S.node_offset, S.node_count, S.prim_type, S.prim_geom,
-                    sx, sy, sz, wix, wiy, wiz, 0.0, math.inf, self_skip, -1)
+                    stack, sx, sy, sz, wix, wiy, wiz, 0.0, math.inf, self_skip, -1)
             if visible and pdf_l > 0.0:
                 cos_i = wix * nx + wiy * ny + wiz * nz
                 if cos_i > 0.0:
