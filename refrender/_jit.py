@@ -3,7 +3,8 @@
 numba's on-disk cache keys a function on the source of *its own* file only, so
 editing a helper in another module can leave a stale cached caller.  We
 therefore point ``NUMBA_CACHE_DIR`` at a folder keyed on a hash of every
-source file of the package: any edit to any kernel starts a fresh cache.
+source file that may define kernels (KERNEL_PACKAGES and this file): any edit
+to any kernel starts a fresh cache.  Kernels must live in those folders.
 Set ``NUMBA_CACHE_DIR`` yourself to override.
 """
 from __future__ import annotations
@@ -15,9 +16,14 @@ from pathlib import Path
 _PKG = Path(__file__).resolve().parent
 
 
+#: sub-packages whose modules may define numba kernels
+KERNEL_PACKAGES = ("geometry", "sampling", "materials", "integrator")
+
+
 def _source_hash() -> str:
     h = hashlib.sha256()
-    for path in sorted(_PKG.rglob("*.py")):
+    files = [_PKG / "_jit.py"] + [p for d in KERNEL_PACKAGES for p in (_PKG / d).rglob("*.py")]
+    for path in sorted(files):
         h.update(path.relative_to(_PKG).as_posix().encode())
         h.update(path.read_bytes())
     return h.hexdigest()[:16]

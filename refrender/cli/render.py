@@ -69,7 +69,7 @@ def run(args) -> int:
     from ..render import resolve_settings
     st = resolve_settings(scene, **overrides)       # validate before any work
     bar = None
-    progress = None
+    progress = None  # noqa: F811 (replaced by a closure when a bar is shown)
     if not args.quiet and sys.stderr.isatty():
         from tqdm import tqdm
         bar = tqdm(total=st["spp"], unit="spp", desc="render", file=sys.stderr, dynamic_ncols=True)

@@ -41,7 +41,7 @@ def _box_entry(nb, i, ox, oy, oz, ix, iy, iz, tmax):
     return INF
 
 
-@inline
+@hot
 def closest_hit(nb, noff, ncnt, prim_type, prim_geom, stack, ox, oy, oz, dx, dy, dz,
                 tmin, tmax, skip):
     """Nearest hit with t in (tmin, tmax), ignoring primitive ``skip`` (-1: none).
@@ -108,7 +108,7 @@ def closest_hit(nb, noff, ncnt, prim_type, prim_geom, stack, ox, oy, oz, dx, dy,
     return best, bt, bu, bv
 
 
-@inline
+@hot
 def occluded(nb, noff, ncnt, prim_type, prim_geom, stack, ox, oy, oz, dx, dy, dz,
              tmin, tmax, skip_a, skip_b):
     """True if any primitive other than skip_a/skip_b is hit with t in (tmin, tmax)."""

@@ -109,6 +109,82 @@ def select_light(cdf, u):
     return lo
 
 
+@inline
+def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
+    """Choose one light (probability proportional to power) and sample it from x.
+
+    Returns wi (unit, from x), its radiance-like factor (radiance for area and
+    environment lights, I/d^2 for a point light, irradiance for a directional
+    one), the pdf (solid angle times selection probability; for delta lights
+    just the selection probability), the delta flag, and the shadow ray from
+    the offset origin s: unit direction, maximum distance and the light's own
+    primitive to ignore (-1 if none).  pdf == 0: no contribution.
+    """
+    li = select_light(L.light_cdf, u_sel)
+    pmf = L.light_pmf[li]
+    ltype = L.light_type[li]
+    ld = L.light_data[li]
+    if ltype == LIGHT_SURFACE:
+        lp = L.light_prim[li]
+        lk = S.prim_type[lp]
+        g = S.prim_geom[lp]
+        qx, qy, qz, mx, my, mz, pdf_dir = sample_emitter(lk, g, S.prim_area[lp], mode,
+                                                         x, y, z, u1, u2)
+        if not (pdf_dir > 0.0) or math.isinf(pdf_dir):
+            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+        wx = qx - x
+        wy = qy - y
+        wz = qz - z
+        dist = math.sqrt(wx * wx + wy * wy + wz * wz)
+        if not (dist > 0.0):
+            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+        wx /= dist
+        wy /= dist
+        wz /= dist
+        front = wx * mx + wy * my + wz * mz < 0.0
+        lobj = S.prim_object[lp]
+        if not front:
+            if S.obj_two_sided[lobj] != 1:
+                return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+            # a sphere hides its far side from an outside point; judged from the
+            # offset origin, so that a point on the sphere itself counts as being
+            # on the side its shading normal faces
+            if lk == SPHERE:
+                cx = sx - g[0]
+                cy = sy - g[1]
+                cz = sz - g[2]
+                if cx * cx + cy * cy + cz * cz > g[3] * g[3]:
+                    return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+        em = S.obj_emission[lobj]
+        sdx = qx - sx
+        sdy = qy - sy
+        sdz = qz - sz
+        sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
+        return (wx, wy, wz, em[0], em[1], em[2], pmf * pdf_dir, False,
+                sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), lp)
+    if ltype == LIGHT_POINT:
+        wx = ld[0] - x
+        wy = ld[1] - y
+        wz = ld[2] - z
+        d2 = wx * wx + wy * wy + wz * wz
+        dist = math.sqrt(d2)
+        if not (dist > 0.0):
+            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+        sdx = ld[0] - sx
+        sdy = ld[1] - sy
+        sdz = ld[2] - sz
+        sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
+        return (wx / dist, wy / dist, wz / dist, ld[3] / d2, ld[4] / d2, ld[5] / d2, pmf, True,
+                sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), -1)
+    if ltype == LIGHT_DIRECTIONAL:
+        return (-ld[0], -ld[1], -ld[2], ld[3], ld[4], ld[5], pmf, True,
+                -ld[0], -ld[1], -ld[2], math.inf, -1)
+    wx, wy, wz = environment_sample(u1, u2)
+    env = L.env
+    return (wx, wy, wz, env[0], env[1], env[2], pmf * environment_pdf(), False,
+            wx, wy, wz, math.inf, -1)
+
+
 @kernel
 def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
     """One camera sample.  Returns (r, g, b, rays traced)."""
@@ -190,110 +266,15 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
         dim = DIMS_CAMERA + depth * DIMS_PER_VERTEX
         # ---- next-event estimation
         if n_lights > 0:
-            li = select_light(L.light_cdf, uniform(key, dim))
-            pmf = L.light_pmf[li]
-            ltype = L.light_type[li]
-            ld = L.light_data[li]
-            u1 = uniform(key, dim + 1)
-            u2 = uniform(key, dim + 2)
-            er = 0.0
-            eg = 0.0
-            eb = 0.0
-            pdf_l = 0.0
-            delta = False
-            visible = False
-            if ltype == LIGHT_SURFACE:
-                lp = L.light_prim[li]
-                lk = S.prim_type[lp]
-                lg_ = S.prim_geom[lp]
-                qx, qy, qz, mx, my, mz, pdf_dir = sample_emitter(
-                    lk, lg_, S.prim_area[lp], mode, x, y, z, u1, u2)
-                if pdf_dir > 0.0 and not math.isinf(pdf_dir):
-                    wix = qx - x
-                    wiy = qy - y
-                    wiz = qz - z
-                    dist = math.sqrt(wix * wix + wiy * wiy + wiz * wiz)
-                    if dist > 0.0:
-                        wix /= dist
-                        wiy /= dist
-                        wiz /= dist
-                        cos_l = -(wix * mx + wiy * my + wiz * mz)
-                        lobj = S.prim_object[lp]
-                        front = cos_l > 0.0
-                        # a sphere hides its far side from an outside point (judged
-                        # from the offset origin: a point on the sphere itself is
-                        # then on the side its shading normal faces)
-                        if lk == SPHERE and not front:
-                            cx = sx - lg_[0]
-                            cy = sy - lg_[1]
-                            cz = sz - lg_[2]
-                            if cx * cx + cy * cy + cz * cz > lg_[3] * lg_[3]:
-                                cos_l = 0.0
-                        if cos_l != 0.0 and (front or S.obj_two_sided[lobj] == 1):
-                            lem = S.obj_emission[lobj]
-                            er = lem[0]
-                            eg = lem[1]
-                            eb = lem[2]
-                            pdf_l = pmf * pdf_dir
-                            sdx = qx - sx
-                            sdy = qy - sy
-                            sdz = qz - sz
-                            sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
-                            rays += 1
-                            visible = not occluded(
-                                S.node_bounds, S.node_offset, S.node_count, S.prim_type,
-                                S.prim_geom, stack, sx, sy, sz, sdx / sd, sdy / sd, sdz / sd,
-                                0.0, sd * (1.0 - SHADOW_SHORTEN), self_skip, lp)
-            elif ltype == LIGHT_POINT:
-                wix = ld[0] - x
-                wiy = ld[1] - y
-                wiz = ld[2] - z
-                d2 = wix * wix + wiy * wiy + wiz * wiz
-                dist = math.sqrt(d2)
-                if dist > 0.0:
-                    wix /= dist
-                    wiy /= dist
-                    wiz /= dist
-                    er = ld[3] / d2
-                    eg = ld[4] / d2
-                    eb = ld[5] / d2
-                    pdf_l = pmf
-                    delta = True
-                    sdx = ld[0] - sx
-                    sdy = ld[1] - sy
-                    sdz = ld[2] - sz
-                    sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
-                    rays += 1
-                    visible = not occluded(
-                        S.node_bounds, S.node_offset, S.node_count, S.prim_type, S.prim_geom,
-                        stack, sx, sy, sz, sdx / sd, sdy / sd, sdz / sd,
-                        0.0, sd * (1.0 - SHADOW_SHORTEN), self_skip, -1)
-            elif ltype == LIGHT_DIRECTIONAL:
-                wix = -ld[0]
-                wiy = -ld[1]
-                wiz = -ld[2]
-                er = ld[3]
-                eg = ld[4]
-                eb = ld[5]
-                pdf_l = pmf
-                delta = True
+            (wix, wiy, wiz, er, eg, eb, pdf_l, delta, sdx, sdy, sdz, smax, lp) = sample_light(
+                S, L, mode, x, y, z, sx, sy, sz, uniform(key, dim), uniform(key, dim + 1),
+                uniform(key, dim + 2))
+            cos_i = wix * nx + wiy * ny + wiz * nz
+            if pdf_l > 0.0 and cos_i > 0.0:
                 rays += 1
-                visible = not occluded(
-                    S.node_bounds, S.node_offset, S.node_count, S.prim_type, S.prim_geom,
-                    stack, sx, sy, sz, wix, wiy, wiz, 0.0, math.inf, self_skip, -1)
-            else:
-                wix, wiy, wiz = environment_sample(u1, u2)
-                er = env[0]
-                eg = env[1]
-                eb = env[2]
-                pdf_l = pmf * environment_pdf()
-                rays += 1
-                visible = not occluded(
-                    S.node_bounds, S.node_offset, S.node_count, S.prim_type, S.prim_geom,
-                    stack, sx, sy, sz, wix, wiy, wiz, 0.0, math.inf, self_skip, -1)
-            if visible and pdf_l > 0.0:
-                cos_i = wix * nx + wiy * ny + wiz * nz
-                if cos_i > 0.0:
+                if not occluded(S.node_bounds, S.node_offset, S.node_count, S.prim_type,
+                                S.prim_geom, stack, sx, sy, sz, sdx, sdy, sdz, 0.0, smax,
+                                self_skip, lp):
                     fr, fg, fb = bsdf_eval(mkind, mp, nx, ny, nz, wox, woy, woz, wix, wiy, wiz)
                     if delta or strategy == STRATEGY_NEE:
                         w = 1.0
