@@ -1,0 +1,177 @@
+"""Farm renders on Dask distributed: sample ranges as tasks, merged in a fixed order.
+
+A farm render cuts the sample range ``first_sample … first_sample + spp − 1``
+into tasks of ``task_spp`` samples per pixel (default: about eight tasks per
+worker, see :func:`default_task_spp`).  Each task renders its range with the
+same counter-based random numbers as a local render and returns its float64
+accumulators; the client merges the tasks in order of their first sample, so
+the image equals the single-machine render of the same samples to float64
+rounding, whichever worker ran which task, and in whatever order they finished.
+
+The scene travels to the workers as one pickled payload (meshes, textures and
+environment maps are already loaded into arrays by ``load_scene``, so no
+shared file system is needed), scattered once to every worker, and its
+SHA-256 is checked on arrival before a task starts.  Tasks are pure: when a
+worker dies, Dask re-runs its task elsewhere, and a range is accepted once.
+"""
+from __future__ import annotations
+
+import hashlib
+import logging
+import math
+import os
+import pickle
+import tempfile
+import time
+
+from .errors import RenderError
+from .render import _UNSET, render, resolve_settings
+from .result import Result, merge
+
+#: default number of tasks per worker: enough to balance and to lose little
+#: when a worker dies, few enough that the per-task overhead (~2 ms) vanishes
+TASKS_PER_WORKER = 8
+
+
+def split_range(first: int, spp: int, task_spp: int) -> list[tuple[int, int]]:
+    """Cut [first, first + spp) into consecutive half-open ranges of task_spp."""
+    if task_spp < 1:
+        raise RenderError(f"task_spp: must be >= 1, got {task_spp}")
+    return [(a, min(a + task_spp, first + spp)) for a in range(first, first + spp, task_spp)]
+
+
+def missing_ranges(ranges, done) -> list[tuple[int, int]]:
+    """The parts of ``ranges`` not covered by the sorted, disjoint ``done`` ranges."""
+    out = []
+    for a, b in ranges:
+        cur = a
+        for da, db in sorted(done):
+            if db <= cur or da >= b:
+                continue
+            if da > cur:
+                out.append((cur, da))
+            cur = max(cur, db)
+            if cur >= b:
+                break
+        if cur < b:
+            out.append((cur, b))
+    return out
+
+
+def default_task_spp(spp: int, n_workers: int) -> int:
+    """ceil(spp / (TASKS_PER_WORKER * workers)), at least 1."""
+    return max(1, math.ceil(spp / (TASKS_PER_WORKER * max(1, n_workers))))
+
+
+def pack_scene(scene) -> tuple[bytes, str]:
+    """The scene as one payload and its SHA-256 (hex)."""
+    payload = pickle.dumps(scene, protocol=pickle.HIGHEST_PROTOCOL)
+    return payload, hashlib.sha256(payload).hexdigest()
+
+
+def _render_task(payload: bytes, digest: str, settings: dict, start: int, stop: int, threads):
+    """Worker side: check the payload, render samples [start, stop), return accumulators."""
+    if hashlib.sha256(payload).hexdigest() != digest:
+        raise RenderError(f"scene payload arrived corrupted (SHA-256 mismatch, expected {digest[:12]}…)")
+    scene = pickle.loads(payload)
+    res = render(scene, spp=stop - start, first_sample=start, threads=threads, **settings)
+    return {"range": (start, stop), "sum": res.sum, "sum_sq": res.sum_sq, "count": res.count,
+            "meta": res.meta, "stats": res.stats, "pid": os.getpid()}
+
+
+def local_cluster(n_workers: int, *, threads_per_worker: int = 1):
+    """A Dask LocalCluster that keeps every socket on 127.0.0.1.
+
+    Workers are separate processes started with ``spawn`` (numba's default
+    OpenMP layer kills a process forked after a parallel call); the dashboard
+    binds to a random loopback port; scratch files go to a temporary folder.
+    """
+    import dask
+    from distributed import LocalCluster
+    if n_workers < 1:
+        raise RenderError(f"--local-workers: must be >= 1, got {n_workers}")
+    tmp = tempfile.mkdtemp(prefix="refrender-dask-")
+    with dask.config.set({"distributed.worker.multiprocessing-method": "spawn",
+                          "temporary-directory": tmp}):
+        return LocalCluster(n_workers=n_workers, threads_per_worker=threads_per_worker,
+                            processes=True, host="127.0.0.1", scheduler_port=0,
+                            dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR)
+
+
+def connect(address: str):
+    """A Dask client for an existing scheduler (``tcp://host:port``)."""
+    from distributed import Client
+    try:
+        return Client(address, timeout="20s")
+    except (OSError, TimeoutError) as exc:
+        raise RenderError(f"--cluster: cannot reach the scheduler at {address}: {exc}") from None
+
+
+def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
+                max_bounces=_UNSET, rr_start=None, strategy=None, light_sampling=None,
+                task_spp: int | None = None, threads_per_task: int | None = None,
+                done: Result | None = None, progress=None, on_task=None,
+                retries: int = 3) -> Result:
+    """Render on the workers of ``client``; returns the merged Result.
+
+    Parameters
+    ----------
+    task_spp : int, optional
+        Samples per pixel of one task (default: :func:`default_task_spp`).
+    threads_per_task : int, optional
+        numba threads used by each task (default: all cores of its worker).
+    done : Result, optional
+        Work already finished (e.g. a checkpoint); its sample ranges are not
+        rendered again and it is merged into the result.
+    progress : callable, optional
+        ``progress(tasks_done, tasks_total, rays, seconds)`` after each task.
+    on_task : callable, optional
+        ``on_task(result_so_far)`` after each task with the merge of ``done``
+        and all tasks finished so far (use it to checkpoint).
+    """
+    from distributed import as_completed
+    over = dict(seed=seed, rr_start=rr_start, strategy=strategy, light_sampling=light_sampling)
+    if max_bounces is not _UNSET:
+        over["max_bounces"] = max_bounces
+    st = resolve_settings(scene, spp=spp, **over)
+    settings = {k: st[k] for k in ("seed", "max_bounces", "rr_start", "strategy", "light_sampling")}
+    n_workers = max(1, len(client.scheduler_info().get("workers", {})))
+    task_spp = task_spp or default_task_spp(st["spp"], n_workers)
+    ranges = split_range(first_sample, st["spp"], task_spp)
+    if done is not None:
+        if done.meta["scene_sha256"] != scene.sha256:
+            raise RenderError("resume: the checkpoint belongs to a different scene")
+        ranges = missing_ranges(ranges, done.sample_ranges)
+    payload, digest = pack_scene(scene)
+    t0 = time.perf_counter()
+    parts: dict[tuple[int, int], Result] = {}
+    if ranges:
+        remote = client.scatter(payload, broadcast=True)
+        futures = [client.submit(_render_task, remote, digest, settings, a, b, threads_per_task,
+                                 key=f"refrender-{digest[:16]}-{st['seed']}-{a}-{b}",
+                                 pure=False, retries=retries) for a, b in ranges]
+        rays = 0
+        for fut in as_completed(futures):
+            r = fut.result()
+            key = tuple(r["range"])
+            if key in parts:           # a re-run of a range that already arrived
+                continue
+            parts[key] = Result(r["sum"], r["sum_sq"], r["count"], [key], r["meta"], r["stats"])
+            rays += int(r["stats"]["rays"])
+            if progress is not None:
+                progress(len(parts), len(ranges), rays, time.perf_counter() - t0)
+            if on_task is not None:
+                on_task(_merge_ordered(done, parts))
+    result = _merge_ordered(done, parts)
+    result.stats["task_seconds"] = sum(float(p.stats.get("seconds", 0.0)) for p in parts.values())
+    result.stats["seconds"] = time.perf_counter() - t0 + (float(done.stats.get("seconds", 0.0)) if done else 0.0)
+    result.stats["mrays_per_s"] = result.stats["rays"] / result.stats["seconds"] / 1e6 if result.stats["seconds"] > 0 else 0.0
+    result.stats["tasks"] = len(parts)
+    return result
+
+
+def _merge_ordered(done, parts) -> Result:
+    items = ([done] if done is not None else []) + [parts[k] for k in sorted(parts)]
+    if not items:
+        raise RenderError("farm: nothing was rendered")
+    return merge(items)
