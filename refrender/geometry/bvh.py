@@ -7,6 +7,9 @@ Layout (``m`` nodes):
   right child is ``offset + 1``); leaf: first entry in the primitive order.
 - ``node_count`` (m,) int32: 0 for an interior node, else the leaf's size.
 
+An empty hierarchy (no primitives) is a single root with an empty box
+(min = +inf, max = -inf) and offset -1; no ray enters it.
+
 Built with 16 SAH bins per axis over the centroid bounds (Wald, "On fast
 Construction of SAH-based Bounding Volume Hierarchies", IEEE RT 2007).
 """
@@ -193,7 +196,9 @@ def build_bvh(bmin: np.ndarray, bmax: np.ndarray):
     bmin = np.ascontiguousarray(bmin, dtype=np.float64)
     bmax = np.ascontiguousarray(bmax, dtype=np.float64)
     if bmin.shape[0] == 0:
+        # the empty hierarchy: one root whose box is empty (min > max), which the
+        # traversal's root test never enters, so its children are never read
         return (np.zeros(0, np.int64), np.array([[np.inf] * 3 + [-np.inf] * 3]),
-                np.zeros(1, np.int32), np.zeros(1, np.int32))
+                np.full(1, -1, np.int32), np.zeros(1, np.int32))
     cent = 0.5 * (bmin + bmax)
     return _build(bmin, bmax, cent)

@@ -20,19 +20,29 @@ def _safe_inv(d):
 
 @hot
 def _box_entry(nb, i, ox, oy, oz, ix, iy, iz, tmax):
-    """Entry distance of the ray into box i (slab test), or inf if missed."""
-    t0 = (nb[i, 0] - ox) * ix
-    t1 = (nb[i, 3] - ox) * ix
-    if t0 > t1:
-        t0, t1 = t1, t0
-    u0 = (nb[i, 1] - oy) * iy
-    u1 = (nb[i, 4] - oy) * iy
-    if u0 > u1:
-        u0, u1 = u1, u0
-    w0 = (nb[i, 2] - oz) * iz
-    w1 = (nb[i, 5] - oz) * iz
-    if w0 > w1:
-        w0, w1 = w1, w0
+    """Entry distance of the ray into box i (slab test), or inf if missed.
+
+    The near and far planes are chosen by the sign of the inverse direction
+    (no swaps), so an empty (inverted, min > max) box is never entered.
+    """
+    if ix >= 0.0:
+        t0 = (nb[i, 0] - ox) * ix
+        t1 = (nb[i, 3] - ox) * ix
+    else:
+        t0 = (nb[i, 3] - ox) * ix
+        t1 = (nb[i, 0] - ox) * ix
+    if iy >= 0.0:
+        u0 = (nb[i, 1] - oy) * iy
+        u1 = (nb[i, 4] - oy) * iy
+    else:
+        u0 = (nb[i, 4] - oy) * iy
+        u1 = (nb[i, 1] - oy) * iy
+    if iz >= 0.0:
+        w0 = (nb[i, 2] - oz) * iz
+        w1 = (nb[i, 5] - oz) * iz
+    else:
+        w0 = (nb[i, 5] - oz) * iz
+        w1 = (nb[i, 2] - oz) * iz
     tn = max(max(t0, u0), max(w0, 0.0))
     # widen the exit by 2 ulps-ish so that rounding never culls a real hit
     tf = min(min(t1, u1), min(w1, tmax)) * 1.0000000000000004
