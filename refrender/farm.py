@@ -111,7 +111,7 @@ def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
                 max_bounces=_UNSET, rr_start=None, strategy=None, light_sampling=None,
                 task_spp: int | None = None, threads_per_task: int | None = None,
                 done: Result | None = None, progress=None, on_task=None,
-                retries: int = 3) -> Result:
+                should_stop=None, retries: int = 3) -> Result:
     """Render on the workers of ``client``; returns the merged Result.
 
     Parameters
@@ -128,6 +128,13 @@ def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
     on_task : callable, optional
         ``on_task(result_so_far)`` after each task with the merge of ``done``
         and all tasks finished so far (use it to checkpoint).
+    should_stop : callable, optional
+        Checked after each task; when it returns a reason (e.g. ``"SIGINT"``)
+        the remaining tasks are cancelled and the partial result is returned
+        with that stop reason.
+
+    The result's ``run`` record has ``stop_reason`` ``spp`` (all ranges done)
+    or the reason from ``should_stop``, and ``complete``.
     """
     from distributed import as_completed
     over = dict(seed=seed, rr_start=rr_start, strategy=strategy, light_sampling=light_sampling)
@@ -141,6 +148,10 @@ def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
     if done is not None:
         if done.meta["scene_sha256"] != scene.sha256:
             raise RenderError("resume: the checkpoint belongs to a different scene")
+        for key, want in settings.items():
+            if done.meta.get(key) != want:
+                raise RenderError(f"resume: the checkpoint has {key} = {done.meta.get(key)!r}, "
+                                  f"this render {want!r}")
         ranges = missing_ranges(ranges, done.sample_ranges)
     payload, digest = pack_scene(scene)
     t0 = time.perf_counter()
@@ -151,7 +162,8 @@ def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
                                  key=f"refrender-{digest[:16]}-{st['seed']}-{a}-{b}",
                                  pure=False, retries=retries) for a, b in ranges]
         rays = 0
-        for fut in as_completed(futures):
+        pending = as_completed(futures)
+        for fut in pending:
             r = fut.result()
             key = tuple(r["range"])
             if key in parts:           # a re-run of a range that already arrived
@@ -162,11 +174,23 @@ def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
                 progress(len(parts), len(ranges), rays, time.perf_counter() - t0)
             if on_task is not None:
                 on_task(_merge_ordered(done, parts))
+            stop = should_stop() if should_stop is not None else None
+            if stop:
+                for f in futures:
+                    f.cancel()
+                break
+    else:
+        stop = None
+    if not parts and done is None:
+        raise RenderError(f"farm: stopped by {stop} before the first task finished; nothing was rendered")
     result = _merge_ordered(done, parts)
     result.stats["task_seconds"] = sum(float(p.stats.get("seconds", 0.0)) for p in parts.values())
     result.stats["seconds"] = time.perf_counter() - t0 + (float(done.stats.get("seconds", 0.0)) if done else 0.0)
     result.stats["mrays_per_s"] = result.stats["rays"] / result.stats["seconds"] / 1e6 if result.stats["seconds"] > 0 else 0.0
     result.stats["tasks"] = len(parts)
+    complete = not stop and len(parts) == len(ranges)
+    result.run = dict(result.run, stop_reason=stop or "spp", complete=complete,
+                      budget={"spp": int(st["spp"])}, farm={"task_spp": task_spp, "workers": n_workers})
     return result
 
 
@@ -174,4 +198,4 @@ def _merge_ordered(done, parts) -> Result:
     items = ([done] if done is not None else []) + [parts[k] for k in sorted(parts)]
     if not items:
         raise RenderError("farm: nothing was rendered")
-    return merge(items)
+    return merge(items) if len(items) > 1 else items[0]

@@ -98,3 +98,27 @@ def test_killed_worker_loses_no_range(scene, client):
     assert np.array_equal(far.count, local.count)   # nothing lost or doubled
     assert np.allclose(far.mean, local.mean, rtol=1e-12, atol=1e-300)
     client.wait_for_workers(2, timeout=60)           # the nanny restarts the worker
+
+
+def test_cli_farm_render_and_resume(tmp_path, scene):
+    """`refrender render --local-workers 2` writes the same image as a local render, and
+    --resume continues a farm checkpoint without re-rendering its ranges."""
+    from refrender.cli.main import main
+    from refrender.io import read_exr
+    doc = json.loads((SCENES / "reading_nook.json").read_text())
+    doc["film"] = {"width": 24, "height": 16}
+    (tmp_path / "meshes").mkdir()
+    (tmp_path / "meshes" / "gem.obj").write_bytes((SCENES / "meshes" / "gem.obj").read_bytes())
+    path = tmp_path / "s.json"
+    path.write_text(json.dumps(doc))
+    out = tmp_path / "o.exr"
+    assert main(["render", str(path), "-o", str(out), "--spp", "4", "--local-workers", "2",
+                 "--task-spp", "2", "--quiet", "--seed", "3"]) == 0
+    assert main(["render", str(path), "-o", str(out), "--spp", "8", "--local-workers", "2",
+                 "--task-spp", "2", "--quiet", "--resume"]) == 0
+    local = refrender.render(refrender.load_scene(path), spp=8, seed=3)
+    img = read_exr(out)
+    assert img.metadata["sample_ranges"] == [[0, 8]]
+    assert np.allclose(img.rgb(), local.mean.astype(np.float32), rtol=1e-6, atol=0)
+    again = refrender.Result.from_state(tmp_path / "o.state")
+    assert np.allclose(again.mean, local.mean, rtol=1e-12, atol=1e-300)
