@@ -1,7 +1,6 @@
 """The render entry point: scene -> arrays -> kernel passes -> Result."""
 from __future__ import annotations
 
-import os
 import time
 from contextlib import contextmanager
 
@@ -11,6 +10,8 @@ import numpy as np
 from .errors import RenderError
 from .geometry.compile import build_lights, camera_array, compile_scene
 from .integrator.path import STRATEGY_BSDF, STRATEGY_MIS, STRATEGY_NEE, render_pass
+from .overnight import (DEFAULT_MIN_SPP, check_memory, check_resumable, kernel_sha256, next_check,
+                        target_statistic)
 from .result import Result, warn_nonfinite
 from .sampling.lights import MODE_AREA, MODE_SOLID_ANGLE
 from .scene.model import Scene
@@ -18,8 +19,6 @@ from .scene.model import Scene
 _UNSET = object()
 _STRATEGIES = {"bsdf": STRATEGY_BSDF, "nee": STRATEGY_NEE, "mis": STRATEGY_MIS}
 _MODES = {"area": MODE_AREA, "solid_angle": MODE_SOLID_ANGLE}
-#: bytes of working memory per pixel (accumulators and the derived images)
-BYTES_PER_PIXEL = 8 * (3 + 3 + 1) + 8 * (3 + 3) * 2
 
 
 @contextmanager
@@ -42,17 +41,6 @@ def _row_order(h: int) -> np.ndarray:
     over the whole image (balanced work, any thread count)."""
     step = 16
     return np.concatenate([np.arange(k, h, step) for k in range(min(step, h))]).astype(np.int64)
-
-
-def _check_memory(h: int, w: int) -> None:
-    need = h * w * BYTES_PER_PIXEL
-    try:
-        avail = os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
-    except (ValueError, OSError, AttributeError):
-        return
-    if need > avail:
-        raise RenderError(f"film: {w}x{h} needs about {need / 2**30:.1f} GiB, "
-                          f"only {avail / 2**30:.1f} GiB free")
 
 
 class Settings(dict):
@@ -86,9 +74,32 @@ def _check_int(name, v, lo, hi):
         raise RenderError(f"{name}: must be an integer in [{lo}, {hi}], got {v!r}")
 
 
+#: sample cap of a render budgeted only by time or target error
+SPP_UNLIMITED = 2 ** 40
+#: wall time aimed at per pass (results do not depend on the pass size)
+PASS_SECONDS = 0.25
+#: the clock of the render loop (tests replace it to assert budgets by sample counts)
+_clock = time.perf_counter
+
+
+def _check_budget(time_limit, target_error, min_spp, checkpoint_every):
+    if time_limit is not None and not (isinstance(time_limit, (int, float)) and time_limit > 0
+                                       and np.isfinite(time_limit)):
+        raise RenderError(f"time: must be a positive number of seconds, got {time_limit!r}")
+    if target_error is not None and not (isinstance(target_error, (int, float))
+                                         and 0 < target_error < np.inf):
+        raise RenderError(f"target_error: must be a positive relative error, got {target_error!r}")
+    _check_int("min_spp", min_spp, 2, 2 ** 40)
+    if checkpoint_every is not None and not (isinstance(checkpoint_every, (int, float))
+                                             and checkpoint_every > 0):
+        raise RenderError(f"checkpoint_every: must be a positive number of seconds, "
+                          f"got {checkpoint_every!r}")
+
+
 def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_bounces=_UNSET,
            rr_start=None, strategy=None, light_sampling=None, threads=None,
-           progress=None) -> Result:
+           progress=None, time_limit=None, target_error=None, min_spp=DEFAULT_MIN_SPP,
+           resume=None, checkpoint=None, checkpoint_every=None, should_stop=None) -> Result:
     """Render a scene.
 
     Keyword arguments override the scene's ``render`` block.  Samples
@@ -96,10 +107,35 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
     depends only on (seed, pixel, sample index, dimension), so results do not
     depend on ``threads`` and disjoint ranges merge exactly.
 
+    Budgets (combinable; the first reached stops the render and is recorded in
+    ``result.run["stop_reason"]``): ``spp`` (total samples per pixel, resumed
+    ones included; without ``spp``, a render given ``time_limit`` or
+    ``target_error`` is not capped by the scene's ``render.spp``),
+    ``time_limit`` (seconds of render time over all sessions: the render stops
+    at the last whole pass that fits, estimated from the previous pass; at
+    least one pass is always made) and ``target_error`` (stop at the first
+    count of :func:`refrender.overnight.target_schedule` from ``min_spp`` at
+    which :func:`refrender.overnight.target_statistic` is below it).  All
+    pixels always get the same number of samples.
+
     Parameters
     ----------
     progress : callable, optional
-        Called after every pass as ``progress(samples_done, spp, rays, seconds)``.
+        Called after every pass as ``progress(samples_done, spp_cap, rays,
+        seconds)``; ``spp_cap`` is None when only time or error budgets apply.
+    resume : Result, optional
+        A checkpoint (``Result.from_state``) of this render: its accumulators
+        are continued, so the outcome is bit-identical to a render that was
+        never interrupted.  Refused (RenderError) if the scene, seed, an
+        estimator setting, the kernel code or ``first_sample`` differ.
+    checkpoint : callable, optional
+        ``checkpoint(result)`` is called between passes every
+        ``checkpoint_every`` seconds with the partial result (stop reason
+        ``"checkpoint"``); it must not keep the arrays, which the render
+        goes on updating.
+    should_stop : callable, optional
+        Called between passes; a non-empty string return (e.g. ``"SIGINT"``)
+        ends the render after the completed passes with that stop reason.
 
     Returns
     -------
@@ -107,51 +143,123 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
     """
     if not isinstance(scene, Scene):
         raise RenderError("render: expected a Scene from refrender.load_scene")
-    st = resolve_settings(scene, spp=spp, seed=seed, max_bounces=max_bounces, rr_start=rr_start,
-                          strategy=strategy, light_sampling=light_sampling)
+    uncapped = spp is None and (time_limit is not None or target_error is not None)
+    st = resolve_settings(scene, spp=SPP_UNLIMITED if uncapped else spp, seed=seed,
+                          max_bounces=max_bounces, rr_start=rr_start, strategy=strategy,
+                          light_sampling=light_sampling)
     _check_int("first_sample", first_sample, 0, 2 ** 62)
+    _check_budget(time_limit, target_error, min_spp, checkpoint_every)
     x0, y0, x1, y1 = scene.film.window
     h, w = y1 - y0, x1 - x0
-    _check_memory(h, w)
+    meta = dict(scene_sha256=scene.sha256, seed=int(st["seed"]), strategy=st["strategy"],
+                light_sampling=st["light_sampling"], max_bounces=st["max_bounces"],
+                rr_start=int(st["rr_start"]), width=scene.film.width, height=scene.film.height,
+                window=[x0, y0, x1, y1])
+    kernels = kernel_sha256()
+    if resume is not None:
+        done = check_resumable(resume, meta, first_sample)
+        acc_sum = np.array(resume.sum, dtype=np.float64, order="C")
+        acc_sq = np.array(resume.sum_sq, dtype=np.float64, order="C")
+        acc_n = np.array(resume.count, dtype=np.int64, order="C")
+        prev_stats, prev_run = dict(resume.stats), dict(resume.run)
+    else:
+        check_memory(h, w)
+        done = 0
+        acc_sum = np.zeros((h, w, 3))
+        acc_sq = np.zeros((h, w, 3))
+        acc_n = np.zeros((h, w), dtype=np.int64)
+        prev_stats, prev_run = {}, {}
     S = compile_scene(scene)
     L = build_lights(scene, S, st["strategy"])
     cam = camera_array(scene)
-    acc_sum = np.zeros((h, w, 3))
-    acc_sq = np.zeros((h, w, 3))
-    acc_n = np.zeros((h, w), dtype=np.int64)
     row_rays = np.zeros(h, dtype=np.int64)
     row_bad = np.zeros(h, dtype=np.int64)
     order = _row_order(h)
     mb = -1 if st["max_bounces"] is None else int(st["max_bounces"])
     args = (S, L, cam, np.uint64(st["seed"]), mb, int(st["rr_start"]), _STRATEGIES[st["strategy"]],
             _MODES[st["light_sampling"]], x0, y0, x1, y1, scene.film.width)
-    total = int(st["spp"])
-    done = 0
+    cap = int(st["spp"])
+    prev_seconds = float(prev_stats.get("seconds", 0.0))
+    checks = [list(c) for c in prev_run.get("error_checks", [])] if target_error is not None else []
+    budget = dict(spp=None if uncapped else cap, time_s=time_limit, target_error=target_error,
+                  min_spp=int(min_spp) if target_error is not None else None)
+    # seconds per sample per pixel: from the checkpoint until this session has measured a pass
+    per_spp = prev_seconds / done if done else None
+    check_at = None
+    stat = prev_run.get("target_statistic")
+    reason = None
+    if target_error is not None:
+        check_at = next_check(done - 1, min_spp) if done else next_check(0, min_spp)
+
+    def result(stop):
+        seconds = prev_seconds + (_clock() - t0)
+        rays = int(prev_stats.get("rays", 0)) + int(row_rays.sum())
+        stats = dict(rays=rays, seconds=seconds,
+                     mrays_per_s=rays / seconds / 1e6 if seconds > 0 else 0.0,
+                     nonfinite_samples=int(prev_stats.get("nonfinite_samples", 0)) + int(row_bad.sum()))
+        run = dict(stop_reason=stop, complete=stop in ("spp", "time", "target_error"), budget=budget,
+                   sessions=int(prev_run.get("sessions", 0)) + 1, kernel_sha256=kernels)
+        if target_error is not None:
+            run.update(target_statistic=stat, error_checks=[list(c) for c in checks])
+        ranges = [(first_sample, first_sample + done)] if done else []
+        return Result(acc_sum, acc_sq, acc_n, ranges, dict(meta), stats, run)
+
+    def test_target():
+        """At a schedule point: record the statistic; True when it is below the target."""
+        nonlocal stat, check_at
+        r = Result(acc_sum, acc_sq, acc_n, [(first_sample, first_sample + done)], meta)
+        stat = target_statistic(r.mean, r.variance)
+        if not checks or checks[-1][0] != done:
+            checks.append([done, stat])
+        check_at = next_check(done, min_spp)
+        return stat < target_error
+
     batch = 1
-    t0 = time.perf_counter()
+    t0 = _clock()
+    last_checkpoint = t0
     with _threads(threads):
-        while done < total:
-            n = min(batch, total - done)
-            t = time.perf_counter()
+        if check_at == done and done and test_target():
+            reason = "target_error"
+        while reason is None:
+            if done >= cap:
+                reason = "spp"
+                break
+            if should_stop is not None:
+                sig = should_stop()
+                if sig:
+                    reason = str(sig)
+                    break
+            n = min(batch, cap - done)
+            if check_at is not None:
+                n = min(n, check_at - done)
+            if time_limit is not None and per_spp is not None:
+                left = time_limit - prev_seconds - (_clock() - t0)
+                fit = int(left // per_spp) if per_spp > 0 else n
+                if fit < 1 and done > 0:
+                    reason = "time"
+                    break
+                n = max(1, min(n, fit))
+            t = _clock()
             render_pass(*args, first_sample + done, n, order, acc_sum, acc_sq, acc_n,
                         row_rays, row_bad)
-            dt = time.perf_counter() - t
+            dt = _clock() - t
             done += n
+            per_spp = dt / n
             if progress is not None:
-                progress(done, total, int(row_rays.sum()), time.perf_counter() - t0)
-            # aim at passes of about 0.25 s (results do not depend on the pass size)
-            if dt < 0.125:
-                batch = min(batch * 2, 1 << 20)
-            elif dt > 0.5 and batch > 1:
-                batch //= 2
-    seconds = time.perf_counter() - t0
-    rays = int(row_rays.sum())
-    bad = int(row_bad.sum())
-    warn_nonfinite(bad)
-    meta = dict(scene_sha256=scene.sha256, seed=int(st["seed"]), strategy=st["strategy"],
-                light_sampling=st["light_sampling"], max_bounces=st["max_bounces"],
-                rr_start=int(st["rr_start"]), width=scene.film.width, height=scene.film.height,
-                window=[x0, y0, x1, y1])
-    stats = dict(rays=rays, seconds=seconds, mrays_per_s=rays / seconds / 1e6 if seconds > 0 else 0.0,
-                 nonfinite_samples=bad)
-    return Result(acc_sum, acc_sq, acc_n, [(first_sample, first_sample + total)], meta, stats)
+                progress(done, None if uncapped else cap, int(prev_stats.get("rays", 0))
+                         + int(row_rays.sum()), prev_seconds + _clock() - t0)
+            if check_at is not None and done == check_at and test_target():
+                reason = "target_error"
+                break
+            if time_limit is not None and prev_seconds + _clock() - t0 >= time_limit:
+                reason = "time"
+                break
+            # aim at passes of about PASS_SECONDS, growing at most 2x per pass
+            ideal = int(PASS_SECONDS / per_spp) if per_spp > 0 else 2 * batch
+            batch = max(1, min(ideal, 2 * max(batch, n), 1 << 20))
+            if (checkpoint is not None and checkpoint_every is not None and done < cap
+                    and _clock() - last_checkpoint >= checkpoint_every):
+                checkpoint(result("checkpoint"))
+                last_checkpoint = _clock()
+    warn_nonfinite(int(row_bad.sum()))
+    return result(reason)

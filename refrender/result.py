@@ -7,7 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import RenderError
+from .errors import ImageError, RenderError
 
 #: metadata keys that must agree for two results to be merged
 ESTIMATOR_KEYS = ("scene_sha256", "seed", "strategy", "light_sampling", "max_bounces",
@@ -31,6 +31,12 @@ class Result:
         Estimator settings and scene identity (see ``ESTIMATOR_KEYS``).
     stats : dict
         ``rays``, ``seconds``, ``mrays_per_s``, ``nonfinite_samples``.
+    run : dict
+        How the render ran and ended: ``stop_reason`` (``spp``, ``time``,
+        ``target_error``, ``SIGINT``, ``SIGTERM``, ``checkpoint`` while still
+        running, ``merge``), ``complete``, ``budget``, ``target_statistic``,
+        ``error_checks``, ``sessions`` (runs that added samples),
+        ``kernel_sha256`` (hash of the kernel sources).
     """
     sum: np.ndarray
     sum_sq: np.ndarray
@@ -38,6 +44,7 @@ class Result:
     sample_ranges: list
     meta: dict
     stats: dict = field(default_factory=dict)
+    run: dict = field(default_factory=dict)
 
     @property
     def spp(self) -> int:
@@ -83,34 +90,86 @@ class Result:
         """
         from .io import save_state, state_path_for, write_exr, write_png_preview
         path = Path(path)
-        meta = self.metadata()
-        write_exr(path, self.mean, self.variance, meta)
+        mean, variance = self.mean, self.variance       # computed once (a checkpoint's cost)
+        meta = self.metadata(noise=noise_summary(mean, variance))
+        # the state first: it is what resume and merge need, and a failed state
+        # write then leaves no EXR without its accumulators
         if state:
             save_state(state_path_for(path),
                        {"sum": self.sum, "sum_sq": self.sum_sq, "count": self.count}, meta)
+        write_exr(path, mean, variance, meta)
         if preview is not None:
             write_png_preview(preview, self.mean, exposure=exposure)
 
-    def metadata(self) -> dict:
+    def metadata(self, noise=None) -> dict:
+        """Settings, sample ranges, stats, run record and noise summary (as written
+        to the EXR header and the state file).  ``noise`` skips recomputing it."""
         from . import __version__
         meta = dict(self.meta)
         meta.update(program="refrender", version=__version__, spp=self.spp,
                     sample_ranges=[list(r) for r in self.sample_ranges],
-                    stats=dict(self.stats), noise=self.noise_summary())
+                    stats=dict(self.stats), run=dict(self.run),
+                    noise=self.noise_summary() if noise is None else noise,
+                    stop_reason=self.run.get("stop_reason"))
         return meta
 
     @classmethod
     def from_state(cls, path) -> "Result":
-        """Load a result from its state file."""
+        """Load a result from its state file.
+
+        Besides the file's own checks (zip CRC, SHA-256 of the arrays), the
+        content must be self-consistent: array shapes and dtypes match the
+        window, sample ranges are sorted and disjoint, counts lie in
+        [0, spp], sums are finite and sums of squares non-negative.  Anything
+        else is a one-line ImageError naming the file.
+        """
         from .io import load_state
         arrays, meta = load_state(path)
         try:
             res = cls(sum=arrays["sum"], sum_sq=arrays["sum_sq"], count=arrays["count"],
                       sample_ranges=[tuple(r) for r in meta["sample_ranges"]],
-                      meta={k: meta[k] for k in ESTIMATOR_KEYS}, stats=dict(meta.get("stats", {})))
+                      meta={k: meta[k] for k in ESTIMATOR_KEYS}, stats=dict(meta.get("stats") or {}),
+                      run=dict(meta.get("run") or {}))
         except KeyError as exc:
-            raise RenderError(f"{path}: state file lacks {exc.args[0]!r}") from None
+            raise ImageError(f"{path}: state file lacks {exc.args[0]!r}") from None
+        except (TypeError, ValueError):
+            raise ImageError(f"{path}: corrupted (malformed sample_ranges, stats or run)") from None
+        problem = _state_problem(res)
+        if problem:
+            raise ImageError(f"{path}: inconsistent state file ({problem})")
         return res
+
+
+def _is_int(v) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def _state_problem(res: "Result"):
+    """Why a Result read from a file cannot be trusted, or None."""
+    win = res.meta["window"]
+    if not (isinstance(win, list) and len(win) == 4 and all(_is_int(v) for v in win)
+            and 0 <= win[0] < win[2] and 0 <= win[1] < win[3]):
+        return f"window {win!r}"
+    h, w = win[3] - win[1], win[2] - win[0]
+    for name, arr, shape, kind in (("sum", res.sum, (h, w, 3), "f"), ("sum_sq", res.sum_sq, (h, w, 3), "f"),
+                                   ("count", res.count, (h, w), "i")):
+        if arr.shape != shape or arr.dtype.kind != kind or arr.dtype.itemsize != 8:
+            return (f"array {name!r} is {arr.dtype}{list(arr.shape)}, expected "
+                    f"{'float64' if kind == 'f' else 'int64'}{list(shape)} for window {win}")
+    ranges = res.sample_ranges
+    if not ranges or not all(len(r) == 2 and _is_int(r[0]) and _is_int(r[1]) and 0 <= r[0] < r[1]
+                             for r in ranges):
+        return f"sample_ranges {ranges!r}"
+    if sorted(ranges) != ranges or _ranges_overlap(ranges):
+        return f"sample_ranges {ranges!r} are not sorted and disjoint"
+    spp = res.spp
+    if res.count.size and (int(res.count.min()) < 0 or int(res.count.max()) > spp):
+        return f"sample counts outside [0, {spp}]"
+    if not (np.all(np.isfinite(res.sum)) and np.all(np.isfinite(res.sum_sq))):
+        return "non-finite sums"
+    if np.any(res.sum_sq < 0):
+        return "negative sums of squares"
+    return None
 
 
 def relative_error(mean, variance, floor: float = 1e-3) -> np.ndarray:
@@ -142,25 +201,32 @@ def _ranges_overlap(ranges) -> bool:
     return any(b0 > a1 for (_, b0), (a1, _) in zip(ranges, ranges[1:]))
 
 
-def merge(results) -> Result:
+def merge(results, names=None) -> Result:
     """Merge renders of disjoint sample ranges of the same scene and settings.
 
     The result equals one render of the union of the samples to float64
     rounding.  Raises RenderError on mismatched scenes or settings, or on
-    overlapping sample ranges (which would count samples twice).
+    overlapping sample ranges (which would count samples twice).  ``names``
+    (e.g. file names) label the inputs in error messages.
     """
     results = list(results)
     if not results:
         raise RenderError("merge: nothing to merge")
+    names = [f"input {i}" for i in range(len(results))] if names is None else [str(n) for n in names]
     first = results[0]
     for i, r in enumerate(results[1:], start=1):
         for key in ESTIMATOR_KEYS:
             if r.meta.get(key) != first.meta.get(key):
-                raise RenderError(f"merge: input {i} differs in {key}: "
+                what = "scene_sha256 (scene content hash)" if key == "scene_sha256" else key
+                raise RenderError(f"merge: {names[i]} differs from {names[0]} in {what}: "
                                   f"{r.meta.get(key)!r} != {first.meta.get(key)!r}")
-    ranges = sorted(tuple(x) for r in results for x in r.sample_ranges)
-    if _ranges_overlap(ranges):
-        raise RenderError(f"merge: sample ranges overlap: {ranges}")
+    owners = sorted((tuple(x), i) for i, r in enumerate(results) for x in r.sample_ranges)
+    for ((a0, b0), i0), ((a1, b1), i1) in zip(owners, owners[1:]):
+        if a1 < b0:
+            who = names[i0] if i0 == i1 else f"{names[i0]} and {names[i1]}"
+            raise RenderError(f"merge: {who} overlap in samples [{a1}, {min(b0, b1)}) "
+                              "(they would be counted twice)")
+    ranges = [r for r, _ in owners]
     order = sorted(range(len(results)), key=lambda i: min(results[i].sample_ranges))
     s = np.zeros_like(first.sum)
     sq = np.zeros_like(first.sum_sq)
@@ -173,13 +239,20 @@ def merge(results) -> Result:
              "seconds": sum(float(r.stats.get("seconds", 0.0)) for r in results),
              "nonfinite_samples": sum(int(r.stats.get("nonfinite_samples", 0)) for r in results)}
     stats["mrays_per_s"] = stats["rays"] / stats["seconds"] / 1e6 if stats["seconds"] > 0 else 0.0
+    codes = sorted({r.run.get("kernel_sha256") for r in results} - {None})
+    if len(codes) > 1:
+        warnings.warn(f"merge: the inputs were rendered by different renderer code (kernels "
+                      f"{', '.join(codes)}); each is unbiased, but they are not one render",
+                      RuntimeWarning, stacklevel=2)
+    run = {"stop_reason": "merge", "complete": all(r.run.get("complete", True) for r in results),
+           "inputs": len(results), "kernel_sha256": codes[0] if len(codes) == 1 else None}
     merged = [list(ranges[0])]
     for a, b in ranges[1:]:
         if a == merged[-1][1]:
             merged[-1][1] = b
         else:
             merged.append([a, b])
-    return Result(s, sq, n, [tuple(r) for r in merged], dict(first.meta), stats)
+    return Result(s, sq, n, [tuple(r) for r in merged], dict(first.meta), stats, run)
 
 
 def warn_nonfinite(count: int) -> None:

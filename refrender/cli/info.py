@@ -42,7 +42,21 @@ def describe(path: Path) -> dict:
     return info
 
 
+#: width of the key column
+W = 23
+
+
+def _flat(prefix, d, out):
+    for key in sorted(d):
+        v = d[key]
+        if isinstance(v, dict):
+            _flat(f"{prefix}{key}.", v, out)
+        else:
+            out.append((prefix + key, v))
+
+
 def run(args) -> int:
+    from ..overnight import format_duration
     path = Path(args.file)
     if not path.exists():
         raise ImageError(f"{path}: no such file")
@@ -52,13 +66,35 @@ def run(args) -> int:
         return 0
     noise = info.pop("noise", None)
     stats = info.pop("stats", {}) or {}
+    run_info = info.pop("run", {}) or {}
+    checks = run_info.pop("error_checks", None)
+    reason = run_info.pop("stop_reason", None)   # shown as 'stop_reason' and 'stopped by'
     for key in sorted(info):
-        print(f"{key:>16}: {info[key]}")
-    for key in sorted(stats):
-        print(f"{'stats.' + key:>16}: {stats[key]}")
+        print(f"{key:>{W}}: {info[key]}")
+    rows = []
+    _flat("stats.", stats, rows)
+    _flat("run.", run_info, rows)
+    for key, value in rows:
+        print(f"{key:>{W}}: {value}")
+    if run_info:
+        done = "complete" if run_info.get("complete") else "unfinished: resume with --resume"
+        print(f"{'stopped by':>{W}}: {reason} ({done})")
+    if "seconds" in stats:
+        sessions = run_info.get("sessions")
+        extra = f" in {sessions} session{'s' if sessions != 1 else ''}" if sessions else ""
+        print(f"{'time spent':>{W}}: {format_duration(float(stats['seconds']))}{extra}")
+    if checks:
+        k, v = checks[-1]
+        print(f"{'error checks':>{W}}: {len(checks)}, last at {k} spp: 95th percentile "
+              f"{100 * v:.3g}% (target {100 * run_info['budget']['target_error']:.3g}%)"
+              if run_info.get("budget", {}).get("target_error") else
+              f"{'error checks':>{W}}: {len(checks)}")
     if noise and noise.get("rel_error_mean") is not None:
-        print(f"{'noise':>16}: relative standard error mean {100 * noise['rel_error_mean']:.3g}%, "
-              f"95th percentile {100 * noise['rel_error_p95']:.3g}%")
+        print(f"{'noise':>{W}}: relative standard error mean {100 * noise['rel_error_mean']:.3g}%, "
+              f"95th percentile {100 * noise['rel_error_p95']:.3g}% (luminance; floor 1e-3 of "
+              f"the mean luminance)")
     elif noise is None:
-        print(f"{'noise':>16}: no variance layer (not a refrender image?)")
+        print(f"{'noise':>{W}}: no variance layer (not a refrender image?)")
+    else:
+        print(f"{'noise':>{W}}: no estimate (fewer than 2 samples per pixel)")
     return 0

@@ -17,12 +17,14 @@ from ..errors import RefrenderError
 
 def _parser() -> argparse.ArgumentParser:
     from . import info, render
+    from . import merge as merge_cli
     p = argparse.ArgumentParser(prog="refrender", description="Ground-truth Monte Carlo path tracing "
                                 "with per-pixel error bars.")
     p.add_argument("--version", action="version", version=f"refrender {__version__}")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
     render.add_parser(sub)
     info.add_parser(sub)
+    merge_cli.add_parser(sub)
     return p
 
 
