@@ -185,6 +185,88 @@ def enclosure_case(albedo=0.8, emission=0.5, max_bounces=None, spp=2048) -> Case
                 "validation-references 2a", scene)
 
 
+def perpendicular_rectangle_case(a=1.0, b=1.0, c=1.0, spp=1024) -> Case:
+    """Element at the origin (normal +z); the rectangle lies in the plane x = c,
+    0 <= y <= a along the line where the planes meet, 0 <= z <= b upward."""
+    X, Y = a / c, b / c
+    F = (math.atan(X) - math.atan(X / math.sqrt(1 + Y * Y)) / math.sqrt(1 + Y * Y)) / (2 * math.pi)
+    # edge1 x edge2 = (0,0,b) x (0,a,0) = (-ab, 0, 0): the front faces the element
+    rect = _emission({"shape": "rectangle", "origin": [c, 0.0, 0.0], "edge1": [0.0, 0.0, b],
+                      "edge2": [0.0, a, 0.0]})
+    scene = _scene(_receiver_camera((0, 0, 0), (0, 0, 1)), [_receiver(), rect], spp=spp)
+    return Case(f"perpendicular rectangle a={a} b={b} c={c}", RHO * L_EMIT * F,
+                "Howell's catalog entry B-8 at 90 degrees (Hamilton & Morgan 1952), closed form "
+                "derived from Lambert's polygon formula; validation-references 1d", scene)
+
+
+def integrating_sphere_case(R=1.0, power=4 * math.pi, albedo=0.9, port=0.02, spp=1024) -> Case:
+    """Isotropic point source of the given power at the centre of a diffuse sphere
+    of radius R whose area fraction ``port`` is a black spherical cap.
+
+    The cap is made by a black disk across its base circle: every segment from
+    the interior (on this side of the base plane) to the cap crosses that disk,
+    so the two are the same to the light.  The wall radiance outside the cap is
+    L = rho E / pi with E = power / (A (1 - rho (1 - f))), A = 4 pi R^2.
+    """
+    A = 4 * math.pi * R * R
+    E = power / (A * (1 - albedo * (1 - port)))
+    cos_a = 1 - 2 * port                 # cap fraction f = (1 - cos alpha) / 2
+    objects = [{"shape": "sphere", "center": [0.0, 0.0, 0.0], "radius": R, "material": "receiver"}]
+    if port > 0:
+        objects.append({"shape": "disk", "center": [0.0, R * cos_a, 0.0], "normal": [0.0, -1.0, 0.0],
+                        "radius": R * math.sqrt(max(0.0, 1 - cos_a * cos_a))})
+    cam = {"projection": "perspective", "position": [0.0, 0.0, 0.0], "look_at": [0.0, -1.0, 0.0],
+           "up": [1.0, 0.0, 0.0], "fov_y": 20.0}
+    light = {"type": "point", "position": [0.0, 0.0, 0.0], "intensity": [power / (4 * math.pi)] * 3}
+    scene = _scene(cam, objects, [light], spp=spp)
+    scene["materials"]["receiver"]["albedo"] = [albedo] * 3
+    return Case(f"integrating sphere rho={albedo} port={port}", albedo * E / math.pi,
+                "integrating sphere, point source at the centre (Goebel, Applied Optics 1967; "
+                "derivation in validation-references 2b)", scene)
+
+
+def _grid_triangles(x1, x2, y1, y2, c, n):
+    """The rectangle [x1,x2] x [y1,y2] in the plane z = c as 2 n^2 triangles facing -z."""
+    xs, ys = np.linspace(x1, x2, n + 1), np.linspace(y1, y2, n + 1)
+    pos = [[float(x), float(y), c] for y in ys for x in xs]
+    idx = []
+    for j in range(n):
+        for i in range(n):
+            a, b, d = j * (n + 1) + i, j * (n + 1) + i + 1, (j + 1) * (n + 1) + i
+            e = d + 1
+            idx += [[a, d, b], [b, d, e]]      # (d - a) x (b - a) points to -z
+    return {"shape": "triangles", "positions": pos, "indices": idx}
+
+
+def mesh_emitter_case(x1=0.0, x2=1.0, y1=0.0, y2=1.0, c=1.0, n=8, spp=1024) -> Case:
+    """The parallel-rectangle case with the emitter given as a mesh of 2 n^2 triangles
+    (each triangle its own light): same configuration factor."""
+    ref = rectangle_case(x1, x2, y1, y2, c)
+    mesh = _emission(_grid_triangles(x1, x2, y1, y2, c, n))
+    scene = _scene(_receiver_camera((0, 0, 0), (0, 0, 1)), [_receiver(), mesh], spp=spp)
+    return Case(f"mesh emitter {2 * n * n} triangles [{x1},{x2}]x[{y1},{y2}] c={c}", ref.expected,
+                ref.source, scene)
+
+
+def mixed_emitters_case(spp=1024) -> Case:
+    """A mesh rectangle (128 triangles), an off-axis disk, a sphere and a point light
+    that do not hide one another from the receiver: the sum of their closed forms."""
+    rect = mesh_emitter_case(0.5, 1.5, -0.5, 0.5, 1.0)
+    disk = disk_case(0.5, 1.0, 1.5)          # its centre is at x = +1.5: mirror it to -1.5
+    sph = sphere_case(0.5, math.sqrt(4.5), 45.0)
+    E_point = 10.0 * (2 / math.sqrt(8)) / 8   # I = 10 at (0, 2, 2): cos 45 deg, d^2 = 8
+    objects = [_receiver(), rect.scene["objects"][1],
+               _emission({"shape": "disk", "center": [-1.5, 0.0, 1.0], "normal": [0.0, 0.0, -1.0],
+                          "radius": 0.5}),
+               _emission({"shape": "sphere", "center": [0.0, -1.5, 1.5], "radius": 0.5})]
+    light = {"type": "point", "position": [0.0, 2.0, 2.0], "intensity": [10.0] * 3}
+    scene = _scene(_receiver_camera((0, 0, 0), (0, 0, 1)), objects, [light], spp=spp)
+    expected = rect.expected + disk.expected + sph.expected + RHO * E_point / math.pi
+    return Case("mixed emitters (131 lights)", expected,
+                HOWELL + " (rectangle, off-axis disk, sphere; superposition) and the "
+                "inverse-square law; validation-references 1a-1c, 7", scene)
+
+
 def measure(case: Case, **overrides):
     """Render a case; returns (value, standard error, Result)."""
     from . import load_scene, render
@@ -206,7 +288,97 @@ SCENE_FILES = {
     "directional_light": directional_case,
     "furnace_sphere": furnace_case,
     "closed_enclosure": enclosure_case,
+    "perpendicular_rectangle": perpendicular_rectangle_case,
+    "integrating_sphere": integrating_sphere_case,
+    "mixed_emitters": mixed_emitters_case,
 }
+
+# --- the suite of `refrender validate` ---------------------------------------------------
+
+#: |z| above which a case fails (4 standard errors; about 6e-5 false failures per case)
+Z_MAX = 4.0
+COMBOS = [(s, m) for s in ("mis", "nee", "bsdf") for m in ("solid_angle", "area")]
+
+
+def _emitter_cases():
+    return [disk_case(1.0, 1.0), disk_case(1.0, 1.0, 0.5), rectangle_case(0, 1, 0, 1, 1.0),
+            rectangle_case(-0.3, 0.7, -0.2, 0.8, 1.0), sphere_case(1.0, 2.0, 30.0),
+            sphere_case(1.0, 2.0, 75.0, spp=4096), perpendicular_rectangle_case(1.0, 1.0, 1.0),
+            perpendicular_rectangle_case(1.0, 2.0, 0.5), mesh_emitter_case(-0.3, 0.7, -0.2, 0.8),
+            mixed_emitters_case()]
+
+
+def _other_cases(full):
+    cases = [point_case(10.0, 2.0, 60.0), directional_case(3.0, 45.0), furnace_case(0.6),
+             furnace_case(1.0), enclosure_case(0.8, 0.5, None), enclosure_case(0.8, 0.5, 5),
+             integrating_sphere_case(1.0, 4 * math.pi, 0.5, 0.0),
+             integrating_sphere_case(1.0, 4 * math.pi, 0.9, 0.02)]
+    if full:
+        cases += [enclosure_case(0.5, 0.5, None), enclosure_case(0.8, 0.5, 0),
+                  enclosure_case(0.8, 0.5, 1), enclosure_case(0.5, 0.5, 3),
+                  integrating_sphere_case(0.5, 10.0, 0.95, 0.01), point_case(10.0, 4.0, 45.0)]
+    return cases
+
+
+def suite(level="quick"):
+    """[(case, strategy, light_sampling, target relative standard error)] of a level.
+
+    quick: one strategy (mis, solid angle) per case, 0.5 % standard error.
+    full: every emitter case under all six strategy x light-sampling
+    combinations and more enclosure / sphere cases, 0.3 % standard error.
+    """
+    if level not in ("quick", "full"):
+        raise ValueError(f"level: quick or full, got {level!r}")
+    full = level == "full"
+    target = 0.003 if full else 0.005
+    rows = []
+    for case in _emitter_cases():
+        for s, m in (COMBOS if full else [("mis", "solid_angle")]):
+            rows.append((case, s, m, target))
+    for case in _other_cases(full):
+        combos = COMBOS if full and not case.name.startswith(("point", "directional")) else [("mis", "solid_angle")]
+        for s, m in combos:
+            rows.append((case, s, m, target))
+    return rows
+
+
+def run_case(case: Case, strategy="mis", light_sampling="solid_angle", target=0.01, threads=None,
+             max_factor=64):
+    """Render a case until its standard error is at most ``target`` of the
+    expected value (adding disjoint sample ranges, at most ``max_factor`` times
+    the case's spp); returns a result dict."""
+    import time
+
+    from . import load_scene, merge, render
+    from .geometry.compile import LUMINANCE
+    t0 = time.perf_counter()
+    scene = load_scene(case.scene)
+    base = int(case.scene["render"]["spp"]) * (8 if strategy == "bsdf" else 1)
+    opts = dict(case.render, strategy=strategy, light_sampling=light_sampling, threads=threads)
+    res = render(scene, spp=base, **opts)
+    done = base
+    goal = target * abs(case.expected)
+
+    def stats_of(r):
+        y = r.mean @ LUMINANCE
+        sy = np.sqrt(r.variance) @ LUMINANCE
+        return float(y.mean()), float(math.sqrt(np.sum(sy ** 2)) / y.size)
+
+    value, se = stats_of(res)
+    while se > goal and done < base * max_factor:
+        more = min(int(done * ((se / goal) ** 2 - 1) * 1.1) + 1, base * max_factor - done)
+        res = merge([res, render(scene, spp=more, first_sample=done, **opts)])
+        done += more
+        value, se = stats_of(res)
+    # floor of 2.5e-10 relative (4 floors = 1e-9, as in tests/test_radiometry.py): the
+    # irradiance varies over the 1e-4 receiver footprint by far less, and an estimator
+    # with (near) zero variance, e.g. a point light on a flat receiver, can then pass
+    z = (value - case.expected) / max(se, 2.5e-10 * abs(case.expected), 1e-300)
+    return dict(case=case.name, strategy=strategy, light_sampling=light_sampling,
+                expected=case.expected, measured=value, std_error=se, z=z,
+                passed=bool(abs(z) <= Z_MAX and res.stats["nonfinite_samples"] == 0),
+                spp=done, seconds=time.perf_counter() - t0, source=case.source,
+                nonfinite_samples=int(res.stats["nonfinite_samples"]))
 
 
 def write_scene_files(folder: Path) -> None:

@@ -16,7 +16,7 @@ from ..errors import RefrenderError
 
 
 def _parser() -> argparse.ArgumentParser:
-    from . import info, render
+    from . import info, render, validate
     from . import merge as merge_cli
     p = argparse.ArgumentParser(prog="refrender", description="Ground-truth Monte Carlo path tracing "
                                 "with per-pixel error bars.")
@@ -24,6 +24,7 @@ def _parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
     render.add_parser(sub)
     info.add_parser(sub)
+    validate.add_parser(sub)
     merge_cli.add_parser(sub)
     return p
 

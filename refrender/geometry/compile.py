@@ -19,10 +19,10 @@ from .intersect import DISK, RECTANGLE, SPHERE, TRIANGLE
 #: BT.709 / sRGB relative-luminance weights of linear RGB (Rec. ITU-R BT.709-6).
 LUMINANCE = np.array([0.2126, 0.7152, 0.0722])
 
-# material type codes (row 0 of the material table is always black)
-MAT_BLACK = 0
-MAT_DIFFUSE = 1
-MAT_PARAMS = 8
+# material type codes (row 0 of the material table is always black); the
+# table itself is built by refrender.materials.table
+from ..materials.bsdf import MAT_BLACK, MAT_DIFFUSE  # noqa: E402,F401
+from ..materials.table import MAT_PARAMS, material_emission, material_table  # noqa: E402
 
 # light type codes
 LIGHT_SURFACE = 0
@@ -56,6 +56,9 @@ class SceneArrays(NamedTuple):
     mat_params: np.ndarray     # (q, MAT_PARAMS) float64
     center: np.ndarray         # (3,) centre of the bounding sphere of all geometry
     radius: float              # its radius (> 0)
+    prim_uv: np.ndarray        # (n, 7) float64: has_uv, uv of a, b, c (mesh triangles)
+    tex_info: np.ndarray       # (T, TEX_INFO) float64, see materials.textures
+    tex_data: np.ndarray       # float32 texels of every texture, concatenated
 
 
 class LightArrays(NamedTuple):
@@ -63,10 +66,16 @@ class LightArrays(NamedTuple):
     light_type: np.ndarray     # (L,) int32
     light_prim: np.ndarray     # (L,) int32 primitive (surface emitters), else -1
     light_data: np.ndarray     # (L, 6) float64, per type (see build_lights)
-    light_cdf: np.ndarray      # (L + 1,) float64, light_cdf[-1] == 1
+    light_cdf: np.ndarray      # (L + 1,) float64, light_cdf[-1] == 1 (kept for tools)
     light_pmf: np.ndarray      # (L,) float64 selection probabilities
     prim_light_pmf: np.ndarray  # (n,) selection probability of primitive k as an emitter
-    env: np.ndarray            # (4,) radiance rgb of the environment and its pmf
+    env: np.ndarray            # (8,) see sampling/envmap.py: rgb, pmf, kind, cos, sin, 0
+    alias_prob: np.ndarray     # (L,) float64 Walker/Vose alias table of light_pmf
+    alias_index: np.ndarray    # (L,) int32
+    env_image: np.ndarray      # (h, w, 3) float64 lat-long image (1x1 when uniform)
+    env_pmf: np.ndarray        # (h, w) pixel probabilities of the image distribution
+    env_marg: np.ndarray       # (h + 1,) marginal cdf over rows
+    env_cond: np.ndarray       # (h, w + 1) conditional cdf of each row
 
 
 def _shape_records(shape):
@@ -128,25 +137,21 @@ def _bounds(types, g):
     return bmin, bmax, scale
 
 
-def _materials(scene: m.Scene):
-    names = list(scene.materials)
-    mat_type = np.zeros(len(names) + 1, dtype=np.int32)
-    params = np.zeros((len(names) + 1, MAT_PARAMS))
-    for i, name in enumerate(names, start=1):
-        mat = scene.materials[name]
-        if mat.type == "diffuse":
-            mat_type[i] = MAT_DIFFUSE
-            params[i, 0:3] = mat.params["albedo"]
-        else:
-            raise TypeError(f"material type {mat.type!r} has no kernel")
-    index = {name: i for i, name in enumerate(names, start=1)}
-    return index, mat_type, params
+def _prim_uv(shape, count):
+    """(count, 7) rows [has_uv, ua, va, ub, vb, uc, vc] (only meshes with UVs have them)."""
+    rows = np.zeros((count, 7))
+    uvs = getattr(shape, "uvs", None)
+    if isinstance(shape, m.TriangleMesh) and uvs is not None:
+        idx = np.asarray(shape.indices, dtype=np.int64)
+        rows[:, 0] = 1.0
+        rows[:, 1:7] = np.asarray(uvs, dtype=np.float64)[idx].reshape(-1, 6)
+    return rows
 
 
 def compile_scene(scene: m.Scene) -> SceneArrays:
     """Flatten the scene's geometry and build the BVH."""
-    index, mat_type, mat_params = _materials(scene)
-    types, geoms, areas, objs, local = [], [], [], [], []
+    index, mat_type, mat_params, tex_info, tex_data = material_table(scene.materials)
+    types, geoms, areas, objs, local, uvs = [], [], [], [], [], []
     obj_material = np.zeros(len(scene.objects), dtype=np.int32)
     obj_emission = np.zeros((len(scene.objects), 3))
     obj_two_sided = np.zeros(len(scene.objects), dtype=np.int32)
@@ -157,8 +162,9 @@ def compile_scene(scene: m.Scene) -> SceneArrays:
         areas.append(a)
         objs.append(np.full(len(t), i, dtype=np.int32))
         local.append(np.arange(len(t), dtype=np.int64))
+        uvs.append(_prim_uv(obj.shape, len(t)))
         obj_material[i] = index[obj.material] if obj.material is not None else 0
-        obj_emission[i] = obj.emission
+        obj_emission[i] = obj.emission + material_emission(scene.materials.get(obj.material))
         obj_two_sided[i] = 1 if obj.two_sided else 0
     if types:
         types = np.concatenate(types).astype(np.int32)
@@ -166,12 +172,14 @@ def compile_scene(scene: m.Scene) -> SceneArrays:
         areas = np.concatenate(areas)
         objs = np.concatenate(objs)
         local = np.concatenate(local)
+        uvs = np.concatenate(uvs)
     else:
         types = np.zeros(0, np.int32)
         geoms = np.zeros((0, 9))
         areas = np.zeros(0)
         objs = np.zeros(0, np.int32)
         local = np.zeros(0, np.int64)
+        uvs = np.zeros((0, 7))
     bmin, bmax, scale = _bounds(types, geoms)
     order, nb, noff, ncnt = build_bvh(bmin, bmax)
     if len(types):
@@ -187,7 +195,8 @@ def compile_scene(scene: m.Scene) -> SceneArrays:
         prim_object=c(objs[order]), prim_index=c(local[order]),
         prim_scale=c(scale[order]), prim_area=c(areas[order]),
         obj_material=obj_material, obj_emission=obj_emission, obj_two_sided=obj_two_sided,
-        mat_type=mat_type, mat_params=mat_params, center=center, radius=radius)
+        mat_type=mat_type, mat_params=mat_params, center=center, radius=radius,
+        prim_uv=c(uvs[order]), tex_info=tex_info, tex_data=tex_data)
 
 
 def light_power(scene: m.Scene, arrays: SceneArrays):
@@ -219,12 +228,32 @@ def light_power(scene: m.Scene, arrays: SceneArrays):
             data[:3], data[3:] = light.direction, light.irradiance
             rows.append((LIGHT_DIRECTIONAL, -1, data, math.pi * R2 * float(LUMINANCE @ light.irradiance)))
         elif isinstance(light, m.EnvironmentLight):
-            data[:3] = light.radiance
-            rows.append((LIGHT_ENVIRONMENT, -1, data,
-                         4.0 * math.pi ** 2 * R2 * float(LUMINANCE @ light.radiance)))
+            if getattr(light, "image", None) is not None:
+                data[:3] = light.scale
+                # pi R^2 times the luminance integral of the radiance over the sphere
+                power = math.pi * R2 * _env_tables(light)[3]
+            else:
+                data[:3] = light.radiance
+                power = 4.0 * math.pi ** 2 * R2 * float(LUMINANCE @ light.radiance)
+            rows.append((LIGHT_ENVIRONMENT, -1, data, power))
         else:
             raise TypeError(f"unknown light {type(light).__name__}")
     return rows
+
+
+_ENV_CACHE: dict = {}
+
+
+def _env_tables(light):
+    """Distribution tables of an image environment (cached per light object)."""
+    from ..sampling.envmap import build_env_distribution
+    key = id(light)
+    hit = _ENV_CACHE.get(key)
+    if hit is None or hit[0] is not light:
+        hit = (light, build_env_distribution(light.image, light.scale))
+        _ENV_CACHE.clear()
+        _ENV_CACHE[key] = hit
+    return hit[1]
 
 
 def build_lights(scene: m.Scene, arrays: SceneArrays, strategy: str) -> LightArrays:
@@ -253,17 +282,34 @@ def build_lights(scene: m.Scene, arrays: SceneArrays, strategy: str) -> LightArr
     if n:
         cdf[-1] = 1.0
     prim_pmf = np.zeros(len(arrays.prim_type))
-    env = np.zeros(4)
+    env = np.zeros(8)
+    env[5] = 1.0
     for i, r in enumerate(rows):
         if r[0] == LIGHT_SURFACE:
             prim_pmf[r[1]] = pmf[i]
         elif r[0] == LIGHT_ENVIRONMENT:
             env[3] = pmf[i]
+    env_image = np.ones((1, 1, 3))
+    env_pmf = np.ones((1, 1))
+    env_marg = np.array([0.0, 1.0])
+    env_cond = np.array([[0.0, 1.0]])
     for light in scene.lights:
         if isinstance(light, m.EnvironmentLight):
-            env[:3] = light.radiance
-    return LightArrays(light_type, light_prim, np.ascontiguousarray(light_data), cdf, pmf,
-                       prim_pmf, env)
+            if getattr(light, "image", None) is not None:
+                env[:3] = light.scale
+                env[4] = 1.0                   # ENV_IMAGE
+                a = math.radians(light.rotate_degrees)
+                env[5], env[6] = math.cos(a), math.sin(a)
+                env_image = np.ascontiguousarray(light.image, dtype=np.float64)
+                env_pmf, env_marg, env_cond, _ = _env_tables(light)
+            else:
+                env[:3] = light.radiance
+    from ..sampling.alias import build_alias
+    prob, alias = build_alias(pmf) if n else (np.ones(0), np.zeros(0, np.int32))
+    c = np.ascontiguousarray
+    return LightArrays(light_type, light_prim, c(light_data), cdf, pmf, prim_pmf, env,
+                       c(prob), c(alias.astype(np.int32)), env_image, c(env_pmf), c(env_marg),
+                       c(env_cond))
 
 
 def camera_array(scene: m.Scene) -> np.ndarray:

@@ -196,3 +196,48 @@ def surface_point(kind, g, ox, oy, oz, dx, dy, dz, t, u, v):
 def is_planar(kind):
     """A planar primitive cannot be hit again by a ray leaving its surface."""
     return kind != SPHERE
+
+
+@inline
+def surface_uv(kind, g, uvrow, px, py, pz, u, v):
+    """Texture coordinates (u, v) of a hit point (see the README, "Textures").
+
+    Triangle: interpolated from ``uvrow`` = [has_uv, ua, va, ub, vb, uc, vc]
+    at the barycentrics (u, v), or the barycentrics themselves without UVs.
+    Rectangle: the edge fractions (along edge1, along edge2).  Sphere:
+    longitude phi / 2 pi with phi = atan2(-dz, dx) in [0, 2 pi) (right-handed
+    about +Y from +X) and latitude v = 1 - theta / pi (theta from +Y, so v = 1
+    at the +Y pole).  Disk: phi / 2 pi about its normal (from the tangent of
+    the normal's orthonormal basis, Duff et al. 2017) and radius / R.
+    """
+    if kind == TRIANGLE:
+        if uvrow[0] > 0.0:
+            w = 1.0 - u - v
+            return (w * uvrow[1] + u * uvrow[3] + v * uvrow[5],
+                    w * uvrow[2] + u * uvrow[4] + v * uvrow[6])
+        return u, v
+    if kind == RECTANGLE:
+        return u, v
+    if kind == SPHERE:
+        dx = (px - g[0]) / g[3]
+        dy = (py - g[1]) / g[3]
+        dz = (pz - g[2]) / g[3]
+        phi = math.atan2(-dz, dx)
+        if phi < 0.0:
+            phi += 2.0 * math.pi
+        return phi / (2.0 * math.pi), 1.0 - math.acos(max(-1.0, min(1.0, dy))) / math.pi
+    # disk: orthonormal basis of the normal (same construction as sampling.warp.onb)
+    nx, ny, nz = g[3], g[4], g[5]
+    sign = 1.0 if nz >= 0.0 else -1.0
+    a = -1.0 / (sign + nz)
+    b = nx * ny * a
+    tx, ty, tz = 1.0 + sign * nx * nx * a, sign * b, -sign * nx
+    bx, by, bz = b, sign + ny * ny * a, -ny
+    qx = px - g[0]
+    qy = py - g[1]
+    qz = pz - g[2]
+    phi = math.atan2(qx * bx + qy * by + qz * bz, qx * tx + qy * ty + qz * tz)
+    if phi < 0.0:
+        phi += 2.0 * math.pi
+    r = math.sqrt(qx * qx + qy * qy + qz * qz) / g[6]
+    return phi / (2.0 * math.pi), min(r, 1.0)

@@ -3,7 +3,8 @@
 Estimator (per camera sample): the radiance arriving along the camera ray,
 computed as a sum over path vertices.  At every vertex with a non-delta BSDF
 and ``strategy`` ``nee`` or ``mis``, one light is chosen with probability
-proportional to its power and sampled (next-event estimation); the BSDF is
+proportional to its power (Walker/Vose alias table, sampling/alias.py) and
+sampled (next-event estimation); the BSDF is
 then sampled to continue the path.  Emission found by a BSDF-sampled ray is
 weighted 1 (``bsdf``, or after a delta lobe / at the camera), 0 (``nee``), or
 by the power heuristic with the light-sampling pdf of the emitter that was
@@ -11,23 +12,36 @@ hit (``mis``; Veach & Guibas, "Optimally Combining Sampling Techniques for
 Monte Carlo Rendering", SIGGRAPH 1995).  Delta lights are always sampled
 explicitly.
 
+Materials: a vertex whose BSDF is all delta lobes (mirror, smooth dielectric,
+smooth conductor) does no light sampling, and the emission its sampled ray
+finds counts with weight 1.  At a transmitting non-delta vertex (rough
+dielectric) light sampling covers both sides, the shadow ray leaving from the
+side of the light.  ``front`` (wo on the front side of the geometric normal)
+tells a dielectric whether the path enters or leaves; camera paths carry
+radiance (refraction scales by (n_o / n_i)^2, see materials/bsdf.py).
+
 Path length: ``max_bounces`` counts scattering events (-1 = unlimited).
 Russian roulette: once a path has scattered k >= rr_start times it continues
 with probability q = min(0.95, max_c throughput_c) and its throughput is
 divided by q, which keeps the estimator unbiased.
 
 Random dimensions of one path: 0-3 camera (pixel position, lens), then 8 per
-vertex: light choice, 2 light sample, 2 BSDF sample, roulette.
+vertex: light choice, 2 light sample, 2 BSDF sample, roulette, spare, BSDF lobe choice.
 """
 import math
 
+import numpy as np
 from numba import prange
 
 from .._jit import inline, kernel
-from ..geometry.intersect import SPHERE, is_planar, surface_point
+from ..geometry.intersect import SPHERE, is_planar, surface_point, surface_uv
 from ..geometry.traverse import closest_hit, new_stack, occluded
-from ..materials.bsdf import MAT_BLACK, bsdf_eval, bsdf_pdf, bsdf_sample
-from ..sampling.lights import (environment_pdf, environment_sample, pdf_emitter, sample_emitter)
+from ..materials.bsdf import (MAT_BLACK, bsdf_eval, bsdf_is_delta, bsdf_pdf, bsdf_sample,
+                              bsdf_transmits)
+from ..materials.textures import is_textured, resolve_params
+from ..sampling.alias import alias_select
+from ..sampling.envmap import env_pdf, env_radiance, env_sample
+from ..sampling.lights import pdf_emitter, sample_emitter
 from ..sampling.rng import path_key, uniform
 from ..sampling.warp import sample_concentric_disk
 
@@ -120,7 +134,7 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
     the offset origin s: unit direction, maximum distance and the light's own
     primitive to ignore (-1 if none).  pdf == 0: no contribution.
     """
-    li = select_light(L.light_cdf, u_sel)
+    li = alias_select(L.alias_prob, L.alias_index, u_sel)
     pmf = L.light_pmf[li]
     ltype = L.light_type[li]
     ld = L.light_data[li]
@@ -179,9 +193,11 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
     if ltype == LIGHT_DIRECTIONAL:
         return (-ld[0], -ld[1], -ld[2], ld[3], ld[4], ld[5], pmf, True,
                 -ld[0], -ld[1], -ld[2], math.inf, -1)
-    wx, wy, wz = environment_sample(u1, u2)
-    env = L.env
-    return (wx, wy, wz, env[0], env[1], env[2], pmf * environment_pdf(), False,
+    wx, wy, wz, pdf_e, er, eg, eb = env_sample(L.env, L.env_image, L.env_pmf, L.env_marg,
+                                               L.env_cond, u1, u2)
+    if not (pdf_e > 0.0):
+        return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+    return (wx, wy, wz, er, eg, eb, pmf * pdf_e, False,
             wx, wy, wz, math.inf, -1)
 
 
@@ -206,7 +222,8 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
     n_lights = L.light_pmf.shape[0]
     env = L.env
     stack = new_stack()
-    has_env = env[0] > 0.0 or env[1] > 0.0 or env[2] > 0.0
+    mscratch = np.empty(S.mat_params.shape[1])   # material row with textures applied
+    has_env = (env[0] > 0.0 or env[1] > 0.0 or env[2] > 0.0) and L.env_image.shape[0] > 0
     while True:
         prim, t, hu, hv = closest_hit(S.node_bounds, S.node_offset, S.node_count,
                                       S.prim_type, S.prim_geom, stack, ox, oy, oz, dx, dy, dz,
@@ -219,10 +236,12 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
                 elif strategy == STRATEGY_NEE:
                     w = 0.0
                 else:
-                    w = power_heuristic(prev_pdf, env[3] * environment_pdf())
-                lr += tr * env[0] * w
-                lg += tg * env[1] * w
-                lb += tb * env[2] * w
+                    w = power_heuristic(prev_pdf, env[3] * env_pdf(env, L.env_image, L.env_pmf,
+                                                                   dx, dy, dz))
+                er, eg, eb = env_radiance(env, L.env_image, dx, dy, dz)
+                lr += tr * er * w
+                lg += tg * eg * w
+                lb += tb * eb * w
             break
         kind = S.prim_type[prim]
         g = S.prim_geom[prim]
@@ -250,6 +269,12 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
         if mkind == MAT_BLACK:
             break
         mp = S.mat_params[mat]
+        if is_textured(mp):
+            tu, tv = surface_uv(kind, g, S.prim_uv[prim], x, y, z, hu, hv)
+            resolve_params(mkind, mp, S.tex_info, S.tex_data, tu, tv, mscratch)
+            mp = mscratch
+        # wo on the front side (outside of a dielectric), decided by the geometric normal
+        front = cos_in < 0.0
         # shading frame on the side of the incoming ray
         if cos_in > 0.0:
             nx = -nx
@@ -265,29 +290,48 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
         self_skip = prim if is_planar(kind) else -1
         dim = DIMS_CAMERA + depth * DIMS_PER_VERTEX
         # ---- next-event estimation
-        if n_lights > 0:
+        if n_lights > 0 and not bsdf_is_delta(mkind):
             (wix, wiy, wiz, er, eg, eb, pdf_l, delta, sdx, sdy, sdz, smax, lp) = sample_light(
                 S, L, mode, x, y, z, sx, sy, sz, uniform(key, dim), uniform(key, dim + 1),
                 uniform(key, dim + 2))
             cos_i = wix * nx + wiy * ny + wiz * nz
-            if pdf_l > 0.0 and cos_i > 0.0:
+            qx, qy, qz = sx, sy, sz
+            below = cos_i < 0.0 and bsdf_transmits(mkind)
+            if below and pdf_l > 0.0:
+                # a light behind a transmitting surface: shadow ray from the other side
+                qx = x - eps * nx
+                qy = y - eps * ny
+                qz = z - eps * nz
+                if not math.isinf(smax):
+                    reach = smax / (1.0 - SHADOW_SHORTEN)
+                    sdx = sx + sdx * reach - qx
+                    sdy = sy + sdy * reach - qy
+                    sdz = sz + sdz * reach - qz
+                    sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
+                    sdx /= sd
+                    sdy /= sd
+                    sdz /= sd
+                    smax = sd * (1.0 - SHADOW_SHORTEN)
+            if pdf_l > 0.0 and (cos_i > 0.0 or below):
                 rays += 1
                 if not occluded(S.node_bounds, S.node_offset, S.node_count, S.prim_type,
-                                S.prim_geom, stack, sx, sy, sz, sdx, sdy, sdz, 0.0, smax,
+                                S.prim_geom, stack, qx, qy, qz, sdx, sdy, sdz, 0.0, smax,
                                 self_skip, lp):
-                    fr, fg, fb = bsdf_eval(mkind, mp, nx, ny, nz, wox, woy, woz, wix, wiy, wiz)
+                    fr, fg, fb = bsdf_eval(mkind, mp, front, nx, ny, nz, wox, woy, woz,
+                                           wix, wiy, wiz)
                     if delta or strategy == STRATEGY_NEE:
                         w = 1.0
                     else:
-                        w = power_heuristic(
-                            pdf_l, bsdf_pdf(mkind, mp, nx, ny, nz, wox, woy, woz, wix, wiy, wiz))
-                    c = cos_i * w / pdf_l
+                        w = power_heuristic(pdf_l, bsdf_pdf(mkind, mp, front, nx, ny, nz, wox,
+                                                            woy, woz, wix, wiy, wiz))
+                    c = abs(cos_i) * w / pdf_l
                     lr += tr * fr * er * c
                     lg += tg * fg * eg * c
                     lb += tb * fb * eb * c
         # ---- continue the path by sampling the BSDF
         wix, wiy, wiz, fr, fg, fb, pdf_b, is_delta = bsdf_sample(
-            mkind, mp, nx, ny, nz, wox, woy, woz, uniform(key, dim + 3), uniform(key, dim + 4))
+            mkind, mp, front, nx, ny, nz, wox, woy, woz, uniform(key, dim + 3),
+            uniform(key, dim + 4), uniform(key, dim + 6))
         if not (pdf_b > 0.0):
             break
         cos_i = abs(wix * nx + wiy * ny + wiz * nz)

@@ -17,13 +17,24 @@ Methods (``mode`` 0 = area, 1 = solid angle):
   back to area sampling when the subtended solid angle is below
   RECT_MIN_SOLID_ANGLE (1e-6 sr, where the spherical excess loses relative
   precision) or x lies within 1e-7 edge lengths of the rectangle's plane.
-- solid angle, disk and triangle: area sampling (documented fallback).
+- solid angle, triangle (every triangle of a mesh emitter): spherical
+  triangle sampling, Arvo, "Stratified Sampling of Spherical Triangles",
+  SIGGRAPH 1995.  The solid angle comes from van Oosterom & Strackee (IEEE
+  Trans. Biomed. Eng. BME-30(2), 1983).  Falls back to area sampling when it
+  is below TRI_MIN_SOLID_ANGLE (1e-6 sr) or x lies within TRI_MIN_HEIGHT
+  (1e-7) longest-edge lengths of the triangle's plane (grazing).
+- solid angle, disk: no closed-form uniform solid-angle map of the elliptic
+  cone a disk subtends is used; disks are sampled by area in both modes (the
+  documented fallback; the battery tests it in both modes).
+
+``uses_solid_angle`` reports the decision for a given x, so tests can check
+both sides of every threshold.
 """
 import math
 
 from .._jit import inline
 from ..geometry.intersect import DISK, RECTANGLE, SPHERE, TRIANGLE
-from .warp import (INV_4PI, PI, pdf_uniform_cone, sample_concentric_disk,
+from .warp import (PI, pdf_uniform_cone, sample_concentric_disk,
                    sample_uniform_cone, sample_uniform_sphere, sample_uniform_triangle, to_world)
 
 MODE_AREA = 0
@@ -32,6 +43,8 @@ MODE_SOLID_ANGLE = 1
 SPHERE_INSIDE_MARGIN = 1e-6
 RECT_MIN_SOLID_ANGLE = 1e-6
 RECT_MIN_HEIGHT = 1e-7
+TRI_MIN_SOLID_ANGLE = 1e-6
+TRI_MIN_HEIGHT = 1e-7
 
 
 # --- area sampling -----------------------------------------------------------
@@ -223,6 +236,128 @@ def sample_rect_solid_angle(g, xx, xy, xz, u1, u2):
     return True, px, py, pz, nx, ny, nz, S
 
 
+# --- triangle: spherical triangle sampling ------------------------------------
+
+@inline
+def _tri_setup(g, xx, xy, xz):
+    """Unit vertex directions and solid angle of triangle g seen from x.
+
+    Returns ok, omega, a, b, c (unit vectors to the vertices).  ok is False
+    when the method must fall back to area sampling.
+    """
+    ax = g[0] - xx
+    ay = g[1] - xy
+    az = g[2] - xz
+    e1x, e1y, e1z = g[3], g[4], g[5]
+    e2x, e2y, e2z = g[6], g[7], g[8]
+    nx = e1y * e2z - e1z * e2y
+    ny = e1z * e2x - e1x * e2z
+    nz = e1x * e2y - e1y * e2x
+    nl = math.sqrt(nx * nx + ny * ny + nz * nz)
+    l1 = e1x * e1x + e1y * e1y + e1z * e1z
+    l2 = e2x * e2x + e2y * e2y + e2z * e2z
+    e3x = e2x - e1x
+    e3y = e2y - e1y
+    e3z = e2z - e1z
+    l3 = e3x * e3x + e3y * e3y + e3z * e3z
+    lmax = math.sqrt(max(l1, l2, l3))
+    h = abs(ax * nx + ay * ny + az * nz) / nl
+    if not (h >= TRI_MIN_HEIGHT * lmax) or not (nl > 0.0):
+        return (False, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0)
+    ux, uy, uz = _norm3(ax, ay, az)
+    vx, vy, vz = _norm3(ax + e1x, ay + e1y, az + e1z)
+    wx, wy, wz = _norm3(ax + e2x, ay + e2y, az + e2z)
+    # van Oosterom & Strackee 1983 (unit vectors): tan(omega/2) = |a.(b x c)| / (1 + a.b + a.c + b.c)
+    num = abs(ux * (vy * wz - vz * wy) + uy * (vz * wx - vx * wz) + uz * (vx * wy - vy * wx))
+    den = 1.0 + (ux * vx + uy * vy + uz * vz) + (ux * wx + uy * wy + uz * wz) + (vx * wx + vy * wy + vz * wz)
+    omega = 2.0 * math.atan2(num, den)
+    ok = omega >= TRI_MIN_SOLID_ANGLE
+    return (ok, omega, ux, uy, uz, vx, vy, vz, wx, wy, wz)
+
+
+@inline
+def sample_spherical_triangle(ax, ay, az, bx, by, bz, cx, cy, cz, omega, u1, u2):
+    """Arvo 1995: direction uniform in the spherical triangle abc (unit
+    vertices) of area omega.  Pdf: 1/omega (solid angle).  Returns w (unit)."""
+    # interior angle alpha at a: between the planes (a, b) and (a, c)
+    pbx, pby, pbz = _norm3(ay * bz - az * by, az * bx - ax * bz, ax * by - ay * bx)
+    pcx, pcy, pcz = _norm3(ay * cz - az * cy, az * cx - ax * cz, ax * cy - ay * cx)
+    cos_alpha = min(1.0, max(-1.0, pbx * pcx + pby * pcy + pbz * pcz))
+    sin_alpha = math.sqrt(max(0.0, 1.0 - cos_alpha * cos_alpha))
+    alpha = math.acos(cos_alpha)
+    cos_c = ax * bx + ay * by + az * bz          # arc length of side ab
+    area_hat = u1 * omega
+    s = math.sin(area_hat - alpha)
+    t = math.cos(area_hat - alpha)
+    uu = t - cos_alpha
+    vv = s + sin_alpha * cos_c
+    den = (vv * s + uu * t) * sin_alpha
+    if den != 0.0:
+        q = ((vv * t - uu * s) * cos_alpha - vv) / den
+    else:
+        q = 1.0
+    q = min(1.0, max(-1.0, q))
+    # new vertex c_hat on arc ac
+    ca = cx * ax + cy * ay + cz * az
+    ex, ey, ez = cx - ca * ax, cy - ca * ay, cz - ca * az
+    el = math.sqrt(ex * ex + ey * ey + ez * ez)
+    if el > 0.0:
+        ex /= el
+        ey /= el
+        ez /= el
+    sq = math.sqrt(max(0.0, 1.0 - q * q))
+    chx = q * ax + sq * ex
+    chy = q * ay + sq * ey
+    chz = q * az + sq * ez
+    # point on arc b c_hat with cos(angle to b) uniform
+    cb = chx * bx + chy * by + chz * bz
+    z = 1.0 - u2 * (1.0 - cb)
+    fx, fy, fz = chx - cb * bx, chy - cb * by, chz - cb * bz
+    fl = math.sqrt(fx * fx + fy * fy + fz * fz)
+    if fl > 0.0:
+        fx /= fl
+        fy /= fl
+        fz /= fl
+    sz = math.sqrt(max(0.0, 1.0 - z * z))
+    return _norm3(z * bx + sz * fx, z * by + sz * fy, z * bz + sz * fz)
+
+
+@inline
+def sample_tri_solid_angle(g, xx, xy, xz, u1, u2):
+    """Uniform in the solid angle of triangle g (pdf 1/omega, solid angle).
+
+    Pdf: pdf_emitter with MODE_SOLID_ANGLE.  Returns ok, y, normal, omega.
+    """
+    ok, omega, ax, ay, az, bx, by, bz, cx, cy, cz = _tri_setup(g, xx, xy, xz)
+    if not ok:
+        return False, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0
+    wx, wy, wz = sample_spherical_triangle(ax, ay, az, bx, by, bz, cx, cy, cz, omega, u1, u2)
+    e1x, e1y, e1z = g[3], g[4], g[5]
+    e2x, e2y, e2z = g[6], g[7], g[8]
+    nx, ny, nz = _norm3(e1y * e2z - e1z * e2y, e1z * e2x - e1x * e2z, e1x * e2y - e1y * e2x)
+    dn = wx * nx + wy * ny + wz * nz
+    hn = (g[0] - xx) * nx + (g[1] - xy) * ny + (g[2] - xz) * nz
+    if dn == 0.0:
+        return False, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0
+    t = hn / dn
+    return True, xx + t * wx, xy + t * wy, xz + t * wz, nx, ny, nz, omega
+
+
+@inline
+def uses_solid_angle(kind, g, mode, xx, xy, xz):
+    """True when sample_emitter / pdf_emitter use the solid-angle method for
+    primitive g seen from x (False: area sampling, by mode or by fallback)."""
+    if mode != MODE_SOLID_ANGLE:
+        return False
+    if kind == SPHERE:
+        return _sphere_cone(g, xx, xy, xz)[0]
+    if kind == RECTANGLE:
+        return _rect_setup(g, xx, xy, xz)[0]
+    if kind == TRIANGLE:
+        return _tri_setup(g, xx, xy, xz)[0]
+    return False
+
+
 # --- public interface -------------------------------------------------------
 
 @inline
@@ -242,6 +377,10 @@ def sample_emitter(kind, g, area, mode, xx, xy, xz, u1, u2):
             ok, yx, yy, yz, nx, ny, nz, S = sample_rect_solid_angle(g, xx, xy, xz, u1, u2)
             if ok:
                 return yx, yy, yz, nx, ny, nz, 1.0 / S
+        elif kind == TRIANGLE:
+            ok, yx, yy, yz, nx, ny, nz, S = sample_tri_solid_angle(g, xx, xy, xz, u1, u2)
+            if ok:
+                return yx, yy, yz, nx, ny, nz, 1.0 / S
     yx, yy, yz, nx, ny, nz = sample_area(kind, g, u1, u2)
     pdf = area_to_solid_angle(pdf_area(area), xx, xy, xz, yx, yy, yz, nx, ny, nz)
     return yx, yy, yz, nx, ny, nz, pdf
@@ -259,16 +398,8 @@ def pdf_emitter(kind, g, area, mode, xx, xy, xz, yx, yy, yz, nx, ny, nz):
             res = _rect_setup(g, xx, xy, xz)
             if res[0]:
                 return 1.0 / res[1]
+        elif kind == TRIANGLE:
+            res = _tri_setup(g, xx, xy, xz)
+            if res[0]:
+                return 1.0 / res[1]
     return area_to_solid_angle(pdf_area(area), xx, xy, xz, yx, yy, yz, nx, ny, nz)
-
-
-@inline
-def environment_sample(u1, u2):
-    """Uniform direction on the sphere for the uniform environment.  Pdf: environment_pdf."""
-    return sample_uniform_sphere(u1, u2)
-
-
-@inline
-def environment_pdf():
-    """Solid-angle pdf of environment_sample."""
-    return INV_4PI

@@ -7,6 +7,7 @@ cross-references, products of fields).
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import numpy as np
 
@@ -113,16 +114,100 @@ def build_film(spec: dict) -> Film:
 
 # ----------------------------------------------------------------------------- materials, objects
 
-def _diffuse(spec: dict) -> Material:
-    return Material(type="diffuse", params={"albedo": vec3(spec["albedo"])})
+def _colour(spec: dict, key: str, path: tuple, files: FileLog, default=None):
+    """(factor (3,), texture or None) of a colour parameter: a 3-vector or a texture object."""
+    from ..materials.texture_load import load_texture
+    value = spec.get(key, default)
+    if isinstance(value, dict):
+        return (vec3(value.get("factor", [1.0, 1.0, 1.0])),
+                load_texture(value, path + (key,), files, colour=True))
+    return vec3(value), None
 
 
-_MATERIALS = {"diffuse": _diffuse}
+def _scalar(spec: dict, key: str, path: tuple, files: FileLog, default=None):
+    """(factor, texture or None) of a scalar parameter: a number or a texture object."""
+    from ..materials.texture_load import load_texture
+    value = spec.get(key, default)
+    if isinstance(value, dict):
+        return float(value.get("factor", 1.0)), load_texture(value, path + (key,), files, colour=False)
+    return float(value), None
 
 
-def build_materials(spec: dict) -> dict[str, Material]:
-    """Name -> :class:`Material` of the ``materials`` map."""
-    return {name: _MATERIALS[entry["type"]](entry) for name, entry in spec.items()}
+def _alpha(spec: dict, path: tuple, files: FileLog) -> dict:
+    """GGX alpha: a number (isotropic), [alpha_x, alpha_y], or a scalar texture."""
+    value = spec["alpha"]
+    if isinstance(value, list):
+        return {"alpha": (float(value[0]), float(value[1])), "alpha_texture": None}
+    factor, tex = _scalar(spec, "alpha", path, files)
+    return {"alpha": (factor, factor), "alpha_texture": tex}
+
+
+def _diffuse(spec: dict, path: tuple, files: FileLog) -> Material:
+    albedo, tex = _colour(spec, "albedo", path, files)
+    return Material(type="diffuse", params={"albedo": albedo, "albedo_texture": tex})
+
+
+def _mirror(spec: dict, path: tuple, files: FileLog) -> Material:
+    return Material(type="mirror", params={"reflectance": vec3(spec.get("reflectance", [1.0, 1.0, 1.0]))})
+
+
+def _dielectric(spec: dict, path: tuple, files: FileLog) -> Material:
+    eta = float(spec.get("ior", 1.5)) / float(spec.get("outside_ior", 1.0))
+    params = {"eta": eta}
+    if spec["type"] == "rough_dielectric":
+        params.update(_alpha(spec, path, files))
+    return Material(type=spec["type"], params=params)
+
+
+def _conductor(spec: dict, path: tuple, files: FileLog) -> Material:
+    from ..materials.presets import metal
+    given = [k for k in ("metal", "eta", "reflectance") if k in spec]
+    if len(given) != 1:
+        raise scene_error(path, "give exactly one of \"metal\" (a preset), \"eta\" with \"k\", "
+                          f"or \"reflectance\"; got {', '.join(given) or 'none'}")
+    if "eta" in spec and "k" not in spec:
+        raise scene_error(path + ("k",), "required with \"eta\" (the extinction coefficient)")
+    if "k" in spec and "eta" not in spec:
+        raise scene_error(path + ("eta",), "required with \"k\"")
+    outside = float(spec.get("outside_ior", 1.0))
+    params = {"reflectance": None}
+    if "metal" in spec:
+        n, k = metal(spec["metal"])
+        params.update(n=n / outside, k=k / outside)
+    elif "eta" in spec:
+        params.update(n=vec3(spec["eta"]) / outside, k=vec3(spec["k"]) / outside)
+    else:
+        params.update(reflectance=vec3(spec["reflectance"]), n=np.zeros(3), k=np.zeros(3))
+    if spec["type"] == "rough_conductor":
+        params.update(_alpha(spec, path, files))
+    return Material(type=spec["type"], params=params)
+
+
+def _metallic_roughness(spec: dict, path: tuple, files: FileLog) -> Material:
+    base, base_tex = _colour(spec, "base_color", path, files, [1.0, 1.0, 1.0])
+    rough, rough_tex = _scalar(spec, "roughness", path, files, 1.0)
+    emissive = vec3(spec.get("emissive", [0.0, 0.0, 0.0])) * float(spec.get("emissive_strength", 1.0))
+    return Material(type="metallic_roughness", params={
+        "base_color": base, "base_color_texture": base_tex, "metallic": float(spec.get("metallic", 1.0)),
+        "roughness": rough, "roughness_texture": rough_tex, "emissive": emissive})
+
+
+_MATERIALS = {
+    "diffuse": _diffuse,
+    "mirror": _mirror,
+    "dielectric": _dielectric,
+    "rough_dielectric": _dielectric,
+    "conductor": _conductor,
+    "rough_conductor": _conductor,
+    "metallic_roughness": _metallic_roughness,
+}
+
+
+def build_materials(spec: dict, files: FileLog | None = None) -> dict[str, Material]:
+    """Name -> :class:`Material` of the ``materials`` map; texture files are read through *files*."""
+    files = files if files is not None else FileLog(Path.cwd())
+    return {name: _MATERIALS[entry["type"]](entry, ("materials", name), files)
+            for name, entry in spec.items()}
 
 
 def _material_name(spec: dict, path: tuple, materials: dict) -> str | None:
@@ -149,18 +234,52 @@ def build_objects(specs: list, materials: dict, files: FileLog) -> list[Object]:
 
 # ----------------------------------------------------------------------------- lights, render
 
-def _light(spec: dict, path: tuple) -> Light:
+def _light(spec: dict, path: tuple, files: FileLog | None = None) -> Light:
     kind = spec["type"]
     if kind == "point":
         return PointLight(position=vec3(spec["position"]), intensity=vec3(spec["intensity"]))
     if kind == "directional":
         return DirectionalLight(direction=unit(spec["direction"], path + ("direction",)),
                                 irradiance=vec3(spec["irradiance"]))
-    return EnvironmentLight(radiance=vec3(spec["radiance"]))
+    return _environment(spec, path, files)
 
 
-def build_lights(specs: list) -> list[Light]:
-    """The light list; at most one environment light."""
+def _environment(spec: dict, path: tuple, files: FileLog | None) -> EnvironmentLight:
+    """Uniform environment, or a lat-long image read through *files* (hashed)."""
+    has_r, has_i = "radiance" in spec, "image" in spec
+    if has_r == has_i:
+        raise scene_error(path, "give exactly one of radiance (uniform) and image (lat-long map)")
+    if has_r:
+        for key in ("scale", "rotate_degrees"):
+            if key in spec:
+                raise scene_error(path + (key,), "applies only to an image environment")
+        return EnvironmentLight(radiance=vec3(spec["radiance"]))
+    if files is None:
+        raise scene_error(path + ("image",), "image environments need a scene folder")
+    where = path + ("image",)
+    resolved, _ = files.read(spec["image"], where)
+    from ..errors import RefrenderError
+    from ..io import read_image
+    try:
+        img = np.asarray(read_image(resolved), dtype=np.float64)
+    except RefrenderError as exc:
+        raise scene_error(where, str(exc)) from None
+    if img.ndim != 3 or img.shape[2] not in (1, 3, 4) or img.shape[0] < 1 or img.shape[1] < 1:
+        raise scene_error(where, f"expected an RGB or grey image, got shape {img.shape}: {resolved}")
+    img = np.repeat(img, 3, axis=2) if img.shape[2] == 1 else img[:, :, :3]
+    if not np.isfinite(img).all():
+        raise scene_error(where, f"image has non-finite values: {resolved}")
+    if (img < 0).any():
+        raise scene_error(where, f"image has negative values (min {img.min():.3g}): {resolved}")
+    scale = spec.get("scale", 1.0)
+    scale = np.full(3, float(scale)) if isinstance(scale, (int, float)) else vec3(scale)
+    return EnvironmentLight(radiance=np.zeros(3), image=np.ascontiguousarray(img), scale=scale,
+                            rotate_degrees=float(spec.get("rotate_degrees", 0.0)),
+                            image_path=str(resolved))
+
+
+def build_lights(specs: list, files: FileLog | None = None) -> list[Light]:
+    """The light list; at most one environment light (an image is read through *files*)."""
     lights: list[Light] = []
     first_environment = None
     for i, spec in enumerate(specs):
@@ -169,7 +288,7 @@ def build_lights(specs: list) -> list[Light]:
                 raise scene_error(("lights", i), f"at most one environment light "
                                   f"(lights[{first_environment}] is one already)")
             first_environment = i
-        lights.append(_light(spec, ("lights", i)))
+        lights.append(_light(spec, ("lights", i), files))
     return lights
 
 

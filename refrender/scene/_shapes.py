@@ -184,11 +184,29 @@ def _triangles(spec: dict, path: tuple, files: FileLog) -> TriangleMesh:
     if len(degenerate):
         tri = int(degenerate[0])
         raise scene_error(path + ("indices", tri), f"triangle {tri} has zero area")
-    return TriangleMesh(positions=world, indices=indices, source="triangles")
+    uvs = None
+    if "uvs" in spec:
+        uvs = np.array(spec["uvs"], dtype=np.float64).reshape(-1, 2)
+        if len(uvs) != len(positions):
+            raise scene_error(path + ("uvs",), f"needs one [u, v] per position: {len(uvs)} for "
+                              f"{len(positions)} positions")
+    return TriangleMesh(positions=world, indices=indices, source="triangles", uvs=uvs)
 
 
-def _read_mesh(resolved: Path, data: bytes, path: tuple) -> tuple[np.ndarray, np.ndarray]:
-    """Vertex positions (n, 3) float64 and faces (m, 3) int64 of a mesh file's bytes."""
+def _mesh_uvs(mesh, count: int) -> np.ndarray | None:
+    """Per-vertex texture coordinates (count, 2) of a trimesh mesh, or None."""
+    uv = getattr(getattr(mesh, "visual", None), "uv", None)
+    if uv is None:
+        return None
+    uv = np.asarray(uv, dtype=np.float64)
+    if uv.shape != (count, 2) or not np.all(np.isfinite(uv)):
+        return None
+    return uv
+
+
+def _read_mesh(resolved: Path, data: bytes, path: tuple):
+    """Vertex positions (n, 3) float64, faces (m, 3) int64 and texture coordinates
+    ((n, 2) float64 or None) of a mesh file's bytes."""
     import trimesh  # imported lazily: only scenes with mesh files need it
 
     file_type = resolved.suffix.lstrip(".").lower()
@@ -196,6 +214,7 @@ def _read_mesh(resolved: Path, data: bytes, path: tuple) -> tuple[np.ndarray, np
         mesh = trimesh.load(io.BytesIO(data), file_type=file_type, force="mesh", process=False)
         vertices = np.asarray(mesh.vertices, dtype=np.float64).reshape(-1, 3)
         faces = np.asarray(mesh.faces, dtype=np.int64).reshape(-1, 3)
+        uvs = _mesh_uvs(mesh, len(vertices))
     except Exception as exc:  # noqa: BLE001 - any loader failure is a bad file for the user
         raise scene_error(path, f"cannot read mesh file {resolved}: {type(exc).__name__}: {exc}") from None
     if len(faces) == 0:
@@ -204,13 +223,13 @@ def _read_mesh(resolved: Path, data: bytes, path: tuple) -> tuple[np.ndarray, np
         raise scene_error(path, f"mesh file has non-finite vertex positions: {resolved}")
     if faces.min() < 0 or faces.max() >= len(vertices):
         raise scene_error(path, f"mesh file has a face index out of range: {resolved}")
-    return vertices, faces
+    return vertices, faces, uvs
 
 
 def _mesh(spec: dict, path: tuple, files: FileLog) -> TriangleMesh:
     where = path + ("path",)
     resolved, data = files.read(spec["path"], where)
-    vertices, faces = _read_mesh(resolved, data, where)
+    vertices, faces, uvs = _read_mesh(resolved, data, where)
     world = _transformed(spec, path, vertices, where)
     degenerate = zero_area(world, faces)
     if np.all(degenerate):
@@ -219,7 +238,7 @@ def _mesh(spec: dict, path: tuple, files: FileLog) -> TriangleMesh:
         warnings.warn(f"{format_path(where)}: dropped {int(degenerate.sum())} zero-area "
                       f"triangles of {len(faces)} in {resolved}", stacklevel=2)
         faces = faces[~degenerate]
-    return TriangleMesh(positions=world, indices=faces, source=str(resolved))
+    return TriangleMesh(positions=world, indices=faces, source=str(resolved), uvs=uvs)
 
 
 _BUILDERS: dict[str, Callable[[dict, tuple, FileLog], Shape]] = {

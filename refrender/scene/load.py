@@ -218,9 +218,9 @@ def load_scene(source: str | os.PathLike | dict, *, base_dir: str | os.PathLike 
     files = FileLog(folder.resolve())
     camera = build_camera(document["camera"])
     film = build_film(document["film"])
-    materials = build_materials(document.get("materials", {}))
+    materials = build_materials(document.get("materials", {}), files)
     objects = build_objects(document["objects"], materials, files)
-    lights = build_lights(document.get("lights", []))
+    lights = build_lights(document.get("lights", []), files)
     render = build_render(document.get("render", {}))
     return Scene(
         camera=camera, film=film, materials=materials, objects=objects, lights=lights, render=render,

@@ -37,8 +37,8 @@ class Film:
 
 @dataclass(frozen=True)
 class Material:
-    type: str                       # "diffuse" (core); extensions add more
-    params: dict[str, Any] = field(default_factory=dict)   # "albedo": (3,) float64 for diffuse
+    type: str                       # "diffuse" (core); extensions: see refrender.materials
+    params: dict[str, Any] = field(default_factory=dict)   # see scene._build._MATERIALS
 
 
 @dataclass(frozen=True)
@@ -66,6 +66,7 @@ class TriangleMesh:
     positions: np.ndarray           # (n, 3) float64, world space (transform applied)
     indices: np.ndarray             # (m, 3) int64
     source: str = "triangles"       # "triangles" or the mesh file path
+    uvs: np.ndarray | None = None   # (n, 2) float64 texture coordinates per vertex, if any
 
 
 Shape = Sphere | Rectangle | Disk | TriangleMesh
@@ -91,9 +92,13 @@ class DirectionalLight:
     irradiance: np.ndarray          # (3,) W m^-2 on a surface facing the light
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class EnvironmentLight:
-    radiance: np.ndarray            # (3,) uniform radiance from every direction
+    radiance: np.ndarray            # (3,) uniform radiance from every direction (zero with an image)
+    image: np.ndarray | None = None     # extension: (h, w, 3) float64 lat-long radiance (before scale)
+    scale: np.ndarray | None = None     # (3,) factor on the image
+    rotate_degrees: float = 0.0         # about +Y, right-handed (see sampling/envmap.py)
+    image_path: str | None = None       # resolved file of the image
 
 
 Light = PointLight | DirectionalLight | EnvironmentLight
