@@ -36,6 +36,11 @@ def _cache_dir() -> str:
 
 if "NUMBA_CACHE_DIR" not in os.environ:
     os.environ["NUMBA_CACHE_DIR"] = _cache_dir()
+# LLVM optimisation level 2 instead of numba's default 3: measured on the demo
+# scene, cold compile 56 s instead of 61 s with equal or better speed (3.2 vs
+# 2.9 Mrays/s); level 1 was slower.  Set NUMBA_OPT yourself to override (it
+# takes effect only if numba has not been imported before refrender).
+os.environ.setdefault("NUMBA_OPT", "2")
 
 import numba  # noqa: E402  (must follow the environment set-up)
 
