@@ -110,20 +110,6 @@ def camera_ray(cam, px, py, u3, u4):
 
 
 @inline
-def select_light(cdf, u):
-    """Index i with cdf[i] <= u < cdf[i+1] (binary search); pmf is cdf[i+1]-cdf[i]."""
-    lo = 0
-    hi = cdf.shape[0] - 2
-    while lo < hi:
-        mid = (lo + hi + 1) // 2
-        if cdf[mid] <= u:
-            lo = mid
-        else:
-            hi = mid - 1
-    return lo
-
-
-@inline
 def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
     """Choose one light (probability proportional to power) and sample it from x.
 
