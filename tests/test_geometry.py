@@ -8,7 +8,7 @@ Sources of the expected values:
   ray-sphere quadratic in its numerically stable form (common practice) for spheres;
   plane intersection plus bounds for rectangles and disks (elementary geometry);
 * trimesh's ``RayMeshIntersector`` (a general-purpose library) as an outside reference;
-* "§2a", "§5b", "§7": /work/shared/validation-references.md (closed enclosure
+* "§2a", "§5b", "§7": the shared validation-references sheet (closed enclosure
   L = Le / (1 - rho), Goral et al. 1984; solid angle of a rectangle seen from a point;
   point light E = I cos(theta) / d^2 and L_o = rho E / pi);
 * BVH layout invariants: the documented layout of refrender.geometry.bvh (invariant).

@@ -1,7 +1,7 @@
 """Tests of refrender.io: EXR, PFM, PNG/HDR/TIFF/NPY reading, state files, atomic writes.
 
 Numeric references are named beside each check; "§6a" is
-/work/shared/validation-references.md §6a (IEC 61966-2-1:1999 sRGB transfer function).
+the shared validation-references sheet §6a (IEC 61966-2-1:1999 sRGB transfer function).
 """
 
 from __future__ import annotations
