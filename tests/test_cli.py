@@ -103,6 +103,9 @@ def _bad_cases(tmp_path: Path):
                                "dir.exr"),
         "output_not_exr": (["render", str(good), "-o", str(tmp_path / "out.png")], ".exr"),
         "huge_film": (["render", str(huge_path), "-o", out], "film"),
+        "spp_not_a_number": (["render", str(good), "-o", out, "--spp", "abc"], "--spp"),
+        "unknown_command": (["rendr", str(good)], "rendr"),
+        "missing_output_option": (["render", str(good)], "-o/--output"),
         "too_many_threads": (["render", str(good), "-o", out,
                               "--threads", str(numba.config.NUMBA_NUM_THREADS + 1)], "threads"),
     }
@@ -110,7 +113,8 @@ def _bad_cases(tmp_path: Path):
 
 BAD = ["scene_typo", "missing_scene", "nan_in_json", "negative_spp", "zero_spp",
        "bad_max_bounces_word", "bad_max_bounces_negative", "output_folder_missing",
-       "output_is_a_folder", "output_not_exr", "huge_film", "too_many_threads"]
+       "output_is_a_folder", "output_not_exr", "huge_film", "too_many_threads",
+       "spp_not_a_number", "unknown_command", "missing_output_option"]
 
 
 @pytest.mark.parametrize("case", BAD)

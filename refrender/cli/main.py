@@ -15,10 +15,18 @@ from .. import __version__
 from ..errors import RefrenderError
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line errors: ``refrender: error: …`` and a hint to --help."""
+
+    def error(self, message):
+        self.exit(2, f"refrender: error: {self.prog.split()[-1]}: {message} "
+                     f"(see '{self.prog} --help')\n")
+
+
 def _parser() -> argparse.ArgumentParser:
     from . import info, render, validate
     from . import merge as merge_cli
-    p = argparse.ArgumentParser(prog="refrender", description="Ground-truth Monte Carlo path tracing "
+    p = _Parser(prog="refrender", description="Ground-truth Monte Carlo path tracing "
                                 "with per-pixel error bars.")
     p.add_argument("--version", action="version", version=f"refrender {__version__}")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
@@ -37,9 +45,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = _parser()
     try:
         args = parser.parse_args(argv)
-    except SystemExit as exc:          # argparse already printed a one-line usage error
+    except SystemExit as exc:          # argparse printed help, the version or a one-line error
         return 2 if exc.code else 0
-    warnings.showwarning = _warning_line
+    previous, warnings.showwarning = warnings.showwarning, _warning_line
     try:
         return int(args.run(args))
     except RefrenderError as exc:
@@ -48,6 +56,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("refrender: interrupted", file=sys.stderr)
         return 130
+    finally:
+        warnings.showwarning = previous
 
 
 def entry() -> None:
