@@ -11,7 +11,8 @@ import math
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
+from _stats import pooled_chi2_pvalue
+from scipy import integrate
 
 from refrender.materials import bsdf as B
 from refrender.materials import batch
@@ -153,21 +154,7 @@ def chi2_pvalue(case, distort=1.0, seed=11):
     exp = (_expected_fractions(case) * N_SAMPLES).ravel()
     obs = obs.ravel()
     assert not (obs[exp == 0] > 0).any(), f"{case[0]}: samples where the pdf integrates to 0"
-    order = np.argsort(exp)
-    po, pe, ao, ae = [], [], 0.0, 0.0
-    for i in order:
-        ao += obs[i]
-        ae += exp[i]
-        if ae >= 5.0:
-            po.append(ao)
-            pe.append(ae)
-            ao = ae = 0.0
-    po[-1] += ao
-    pe[-1] += ae
-    po, pe = np.array(po), np.array(pe)
-    pe *= po.sum() / pe.sum()          # normalisation is tested separately
-    chi2 = float(((po - pe) ** 2 / pe).sum())
-    return float(stats.chi2.sf(chi2, len(po) - 1)), len(po)
+    return pooled_chi2_pvalue(obs, exp)
 
 
 @pytest.mark.parametrize("case", CASES, ids=IDS)

@@ -26,6 +26,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from _stats import pooled_chi2_pvalue
+
 from refrender.sampling import registry as R
 
 CASES = R.registry()
@@ -89,23 +91,7 @@ def chi2_pvalue(case, distort=1.0, seed=11):
     # support: no sample where the pdf function is 0 (a bin whose sub-grid misses a thin
     # sliver of the support can have E = 0 and still rightly hold samples; pooling absorbs it)
     assert (case.pdf(d) > 0).all(), f"{case.name}: samples where the pdf is 0"
-    # pool the lowest-expectation bins until every pooled bin has E >= 5
-    order = np.argsort(exp)
-    pooled_o, pooled_e, acc_o, acc_e = [], [], 0.0, 0.0
-    for i in order:
-        acc_o += obs[i]
-        acc_e += exp[i]
-        if acc_e >= 5.0:
-            pooled_o.append(acc_o)
-            pooled_e.append(acc_e)
-            acc_o = acc_e = 0.0
-    if acc_e > 0 or acc_o > 0:
-        pooled_o[-1] += acc_o
-        pooled_e[-1] += acc_e
-    po, pe = np.array(pooled_o), np.array(pooled_e)
-    pe *= po.sum() / pe.sum()          # normalisation is tested separately
-    chi2 = float(((po - pe) ** 2 / pe).sum())
-    return float(stats.chi2.sf(chi2, len(po) - 1)), len(po)
+    return pooled_chi2_pvalue(obs, exp)
 
 
 @pytest.mark.parametrize("case", CASES, ids=IDS)
