@@ -22,7 +22,7 @@ def read_image(path):
     return _read(path)
 
 
-def trace(scene, origins, directions):
+def trace(scene, origins, directions, *, arrays=None, kernel="auto"):
     """Closest hits of a batch of rays; see refrender.query.trace."""
     from .query import trace as _trace
-    return _trace(scene, origins, directions)
+    return _trace(scene, origins, directions, arrays=arrays, kernel=kernel)

@@ -29,7 +29,8 @@ from trimesh.ray.ray_triangle import ray_triangle_id
 import refrender
 from refrender.geometry import bvh as bvh_mod
 from refrender.geometry.bvh import build_bvh
-from refrender.geometry.traverse import _box_entry
+from refrender.geometry.bvh import wide_bvh
+from refrender.geometry.intrinsics import box8_entry
 from refrender.scene.model import Disk, Rectangle, Sphere, TriangleMesh
 
 SEED = 20260611
@@ -195,8 +196,12 @@ def _oracle(scene, o, d):
 
 
 def _compare_with_oracle(scene, o, d, chunk=200):
-    """Assert refrender.trace equals the brute force; return (hit fraction, tie count)."""
-    hits = refrender.trace(scene, o, d)
+    """Assert refrender.trace equals the brute force with both kernels (which must
+    agree bit for bit); return (hit fraction, tie count)."""
+    hits = refrender.trace(scene, o, d, kernel="interleaved")
+    seq = refrender.trace(scene, o, d, kernel="sequential")
+    for name, a, b in zip(hits._fields, hits, seq):
+        assert np.array_equal(a, b), f"interleaved and sequential kernels differ in {name}"
     n_hit = 0
     n_tie = 0
     col_of = None
@@ -282,6 +287,22 @@ def test_mixed_scene_matches_brute_force():
     kinds = {type(scene.objects[i].shape) for i in
              set(refrender.trace(scene, o, d).object.tolist()) - {-1}}
     assert kinds == {Sphere, Rectangle, Disk, TriangleMesh}   # every kind was actually hit
+
+
+def test_kernel_choice_by_coherence():
+    """Camera rays in pixel order are coherent, random rays are not; an unknown
+    kernel name is a one-line error."""
+    from refrender.errors import RenderError
+    from refrender.query import is_coherent
+    ys, xs = np.mgrid[0:64, 0:64]
+    d = np.stack([(xs - 31.5) / 64, (ys - 31.5) / 64, -np.ones_like(xs, float)], -1).reshape(-1, 3)
+    o = np.tile([0.0, 0.0, 3.0], (len(d), 1))
+    assert is_coherent(o, d, 1.0)
+    rng = np.random.default_rng(SEED + 14)
+    assert not is_coherent(rng.normal(size=(5000, 3)), rng.normal(size=(5000, 3)), 1.0)
+    scene = _scene([{"shape": "sphere", "center": [0, 0, 0], "radius": 1}])
+    with pytest.raises(RenderError, match="kernel must be one of"):
+        refrender.trace(scene, o, d, kernel="fast")
 
 
 class _AllCandidates:
@@ -422,27 +443,131 @@ def test_bvh_invariants(case):
 
 
 def test_bvh_of_nothing_is_well_formed():
-    """BUG (reported): the BVH of zero primitives is malformed.
-
-    build_bvh returns a root with node_count 0, which the layout defines as an
-    *interior* node whose children are nodes 0 and 1; there is only one node.  Its
-    bounds are (inf, -inf) and _box_entry does not reject this inverted box (the
-    swapped slabs become (-inf, inf)), so traversal descends into it (see
-    test_empty_scene_trace_terminates)."""
+    """BUG (reported): the BVH of zero primitives was malformed (a root read as an
+    interior node whose children do not exist), so traversal descended into it
+    (see test_empty_scene_trace_terminates).  Now: a root with an empty box and
+    offset -1, whose wide node has eight empty slots that no ray enters."""
     order, nb, noff, ncnt = build_bvh(np.zeros((0, 3)), np.zeros((0, 3)))
     assert len(order) == 0
-    entry = _root_entry(nb, np.array([0.1, 0.2, 0.3]), np.array([0.3, -0.5, 0.8]))
-    assert entry == math.inf, f"a ray enters the empty root box at t={entry}"
     _check_bvh(np.zeros((0, 3)), np.zeros((0, 3)), order, nb, noff, ncnt)
+    nodes = wide_bvh(nb, noff, ncnt)
+    assert len(nodes) == bvh_mod.RECORD
+    rng = np.random.default_rng(SEED + 11)
+    for _ in range(50):
+        mask, _t = _box8(nodes, 0, rng.normal(size=3), rng.normal(size=3), math.inf)
+        assert mask == 0, "a ray enters a slot of the empty hierarchy"
 
 
 @numba.njit
-def _root_entry_kernel(nb, o, inv):
-    return _box_entry(nb, 0, o[0], o[1], o[2], inv[0], inv[1], inv[2], math.inf)
+def _box8_kernel(nodes, base, o, inv, near, tmax, tout):
+    return box8_entry(nodes, base, o[0], o[1], o[2], inv[0], inv[1], inv[2],
+                      near[0], near[1], near[2], tmax, tout)
 
 
-def _root_entry(nb, o, d):
-    return _root_entry_kernel(nb, o, 1.0 / d)
+def _box8(nodes, base, o, d, tmax):
+    inv = 1.0 / d
+    tout = np.empty(8)
+    mask = _box8_kernel(nodes, base, o, inv, np.where(inv >= 0, 0, 3), tmax, tout)
+    return mask, tout
+
+
+def _scalar_entry(lo, hi, o, inv, tmax):
+    """The scalar slab test the vector one must equal (same operations, same order)."""
+    near = np.where(inv >= 0, lo, hi)
+    far = np.where(inv >= 0, hi, lo)
+    t0 = (near - o) * inv
+    t1 = (far - o) * inv
+    tn = max(max(t0[0], t0[1]), max(t0[2], 0.0))
+    tf = min(min(t1[0], t1[1]), min(t1[2], tmax)) * 1.0000000000000004
+    return tn <= tf, tn
+
+
+def test_box8_entry_equals_the_scalar_slab_test():
+    """The vector slab test (an LLVM intrinsic) gives bit for bit the scalar test's
+    entry distances and hit decisions, for random boxes, empty slots, rays that
+    start inside boxes and axis-parallel rays (common practice: the slab method)."""
+    rng = np.random.default_rng(SEED + 12)
+    for it in range(3000):
+        lo = rng.uniform(-1, 1, (3, 8)).astype(np.float32)
+        hi = (lo + rng.uniform(0, 1, (3, 8))).astype(np.float32)
+        empty = rng.uniform(size=8) < 0.2
+        lo[:, empty] = np.inf
+        hi[:, empty] = -np.inf
+        nodes = np.zeros(3 * 64, np.float32)
+        nodes[64:112] = np.concatenate([lo, hi]).ravel()
+        o = rng.uniform(-2, 2, 3)
+        d = rng.normal(size=3)
+        if it % 5 == 0:
+            d[rng.integers(3)] = 0.0                       # axis-parallel
+        if it % 7 == 0 and not empty[0]:
+            o = 0.5 * (lo[:, 0] + hi[:, 0]).astype(float)  # inside child 0
+        with np.errstate(divide="ignore"):
+            inv = np.where(d == 0, np.copysign(1e300, d), 1.0 / np.where(d == 0, 1, d))
+        tmax = [math.inf, 1.5][it % 2]
+        tout = np.empty(8)
+        mask = _box8_kernel(nodes, 64, o, inv, np.where(inv >= 0, 0, 3), tmax, tout)
+        for c in range(8):
+            hit, tn = _scalar_entry(lo[:, c].astype(float), hi[:, c].astype(float), o, inv, tmax)
+            assert bool(mask >> c & 1) == hit, f"iteration {it} child {c}"
+            if not empty[c]:
+                assert tout[c] == tn
+            else:
+                assert not hit
+
+
+@pytest.mark.parametrize("case", ["random", "collinear", "exponential", "single"])
+def test_wide_bvh_is_the_binary_one_collapsed(case):
+    """Every primitive is in exactly one leaf of the 8-wide hierarchy, every float32
+    child box contains the float64 boxes of its primitives (outward rounding), and
+    the pending-child stack bound WIDE_STACK holds."""
+    rng = np.random.default_rng(SEED + 13)
+    if case == "random":
+        c = rng.uniform(-10, 10, size=(5000, 3))
+        bmin, bmax = _boxes_of_centres(c, rng.uniform(0.0, 1.0, size=(5000, 3)))
+    elif case == "collinear":
+        c = np.outer(rng.uniform(0, 5, 777), [1.0, 2.0, -1.0])
+        bmin, bmax = _boxes_of_centres(c, 0.1)
+    elif case == "single":
+        bmin, bmax = np.array([[0.0, 1, 2]]), np.array([[1.0, 2, 3]])
+    else:
+        c = np.zeros((200, 3))
+        c[:, 0] = 2.0 ** -np.arange(200)
+        bmin, bmax = _boxes_of_centres(c, 0.0)
+    order, nb, noff, ncnt = build_bvh(bmin, bmax)
+    nodes = wide_bvh(nb, noff, ncnt)
+    assert nodes.ctypes.data % 64 == 0
+    ni = nodes.view(np.int32)
+    n_wide = len(nodes) // bvh_mod.RECORD
+    seen = np.zeros(len(order), int)
+    visits = np.zeros(n_wide, int)
+    todo = [(0, 0)]
+    max_pending = 0
+    while todo:
+        r, depth = todo.pop()
+        visits[r] += 1
+        rec = nodes[64 * r:64 * r + 48].reshape(6, 8)
+        n_children = 0
+        for c in range(8):
+            lo, hi = rec[:3, c], rec[3:, c]
+            ref, cnt = ni[64 * r + 48 + c], ni[64 * r + 56 + c]
+            if lo[0] > hi[0]:
+                assert cnt == 0 and np.all(lo == np.inf)
+                continue
+            n_children += 1
+            if cnt > 0:
+                prims = order[ref:ref + cnt]
+                seen[ref:ref + cnt] += 1
+                assert np.all(lo <= bmin[prims]) and np.all(hi >= bmax[prims])
+            else:
+                sub = nodes[64 * ref:64 * ref + 48].reshape(6, 8)
+                live = sub[0] <= sub[3]
+                assert np.all(lo[:, None] <= sub[:3, live]) and np.all(hi[:, None] >= sub[3:, live])
+                todo.append((ref, depth + 1))
+        assert n_children >= 1
+        max_pending = max(max_pending, (depth + 1) * 7)
+    assert np.all(seen == 1), "every primitive appears in exactly one leaf"
+    assert np.all(visits == 1), "every wide node is reached exactly once"
+    assert max_pending <= bvh_mod.WIDE_STACK
 
 
 def test_empty_scene_trace_terminates(tmp_path):

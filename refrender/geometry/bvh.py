@@ -202,3 +202,131 @@ def build_bvh(bmin: np.ndarray, bmax: np.ndarray):
                 np.full(1, -1, np.int32), np.zeros(1, np.int32))
     cent = 0.5 * (bmin + bmax)
     return _build(bmin, bmax, cent)
+
+
+#: children per node of the wide BVH the kernels traverse
+WIDTH = 8
+#: float32 entries of one wide node (256 bytes, four cache lines)
+RECORD = 64
+#: pending-child stack of the wide traversal: at most WIDTH - 1 entries per
+#: level of a hierarchy of depth <= MAX_DEPTH (+ 1 for the widest push)
+WIDE_STACK = (WIDTH - 1) * (MAX_DEPTH + 1) + WIDTH
+
+
+def _aligned_empty(n, dtype, align=64):
+    """Uninitialised 1-D array whose data starts on an ``align``-byte boundary."""
+    itemsize = np.dtype(dtype).itemsize
+    buf = np.empty(n + align // itemsize, dtype=dtype)
+    start = (-buf.ctypes.data % align) // itemsize
+    return buf[start:start + n]
+
+
+def _round_out(lo, hi):
+    """float32 copies of float64 box bounds rounded outwards (never shrink a box)."""
+    lo32 = lo.astype(np.float32)
+    hi32 = hi.astype(np.float32)
+    down = lo32.astype(np.float64) > lo
+    lo32[down] = np.nextafter(lo32[down], np.float32(-np.inf))
+    up = hi32.astype(np.float64) < hi
+    hi32[up] = np.nextafter(hi32[up], np.float32(np.inf))
+    return lo32, hi32
+
+
+@kernel
+def _collapse(lo32, hi32, noff, ncnt, out):
+    """Fill ``out`` with the wide nodes of the binary BVH; returns their number.
+
+    Each wide node starts from a binary interior node's two children and
+    repeatedly opens its interior child of largest surface area (in place,
+    so the children keep their left-to-right order) until it has WIDTH
+    children or only leaves.  Nodes are numbered breadth first.
+    """
+    out_i = out.view(np.int32)
+    src_of = np.empty(max(1, noff.shape[0]), np.int64)
+    ch = np.empty(WIDTH + 1, np.int64)
+    src_of[0] = 0
+    n_wide = 1
+    head = 0
+    while head < n_wide:
+        src = src_of[head]
+        base = head * RECORD
+        head += 1
+        if ncnt[src] > 0:
+            k = 1                         # a root that is a leaf
+            ch[0] = src
+        elif noff[src] < 0:
+            k = 0                         # the empty hierarchy
+        else:
+            ch[0] = noff[src]
+            ch[1] = noff[src] + 1
+            k = 2
+            while k < WIDTH:
+                best = -1
+                best_area = -1.0
+                for i in range(k):
+                    c = ch[i]
+                    if ncnt[c] == 0:
+                        ex = np.float64(hi32[c, 0]) - lo32[c, 0]
+                        ey = np.float64(hi32[c, 1]) - lo32[c, 1]
+                        ez = np.float64(hi32[c, 2]) - lo32[c, 2]
+                        area = ex * ey + ey * ez + ez * ex
+                        if area > best_area:
+                            best_area = area
+                            best = i
+                if best < 0:
+                    break
+                c = ch[best]
+                for i in range(k, best + 1, -1):
+                    ch[i] = ch[i - 1]
+                ch[best] = noff[c]
+                ch[best + 1] = noff[c] + 1
+                k += 1
+        for slot in range(WIDTH):
+            if slot < k:
+                c = ch[slot]
+                for a in range(3):
+                    out[base + 8 * a + slot] = lo32[c, a]
+                    out[base + 8 * (a + 3) + slot] = hi32[c, a]
+                if ncnt[c] > 0:
+                    out_i[base + 48 + slot] = noff[c]
+                    out_i[base + 56 + slot] = ncnt[c]
+                else:
+                    src_of[n_wide] = c
+                    out_i[base + 48 + slot] = n_wide
+                    out_i[base + 56 + slot] = 0
+                    n_wide += 1
+            else:
+                for a in range(3):
+                    out[base + 8 * a + slot] = np.inf
+                    out[base + 8 * (a + 3) + slot] = -np.inf
+                out_i[base + 48 + slot] = 0
+                out_i[base + 56 + slot] = 0
+    return n_wide
+
+
+def wide_bvh(node_bounds, node_offset, node_count):
+    """The binary BVH collapsed into 8-wide nodes, as one float32 array.
+
+    Node ``r`` is the 64 float32 at ``nodes[64 r:]`` (256 bytes, 64-byte
+    aligned; ``nodes.view(np.int32)`` reads the integer entries):
+
+    - ``[8 p + c]`` for plane p = min x, y, z, max x, y, z of child c
+      (structure of arrays, so one vector load per plane), float32 rounded
+      outwards: no ray that enters a child's float64 box misses its float32
+      box, so the traversal finds exactly the hits of the float64 hierarchy;
+    - ``[48 + c]`` (int32) the child's reference and ``[56 + c]`` its count:
+      count > 0 is a leaf of ``count`` primitives from ``ref`` in the
+      primitive order, count == 0 an interior child whose node is ``ref``.
+
+    Unused slots have an empty box (min = +inf > max = -inf) that no ray
+    enters.  Node 0 is the root; a root that is itself a leaf is slot 0 of
+    node 0, and the empty hierarchy is a node of eight empty slots.
+    """
+    lo32, hi32 = _round_out(node_bounds[:, :3], node_bounds[:, 3:])
+    n_interior = int(np.count_nonzero(node_count == 0))
+    work = np.empty(max(1, n_interior) * RECORD, np.float32)
+    n_wide = _collapse(np.ascontiguousarray(lo32), np.ascontiguousarray(hi32),
+                       node_offset, node_count, work)
+    nodes = _aligned_empty(n_wide * RECORD, np.float32)
+    nodes[:] = work[:n_wide * RECORD]
+    return nodes

@@ -13,7 +13,7 @@ from typing import NamedTuple
 import numpy as np
 
 from ..scene import model as m
-from .bvh import build_bvh
+from .bvh import build_bvh, wide_bvh
 from .intersect import DISK, RECTANGLE, SPHERE, TRIANGLE
 
 #: BT.709 / sRGB relative-luminance weights of linear RGB (Rec. ITU-R BT.709-6).
@@ -40,9 +40,7 @@ _PROJECTIONS = {"perspective": CAM_PERSPECTIVE, "orthographic": CAM_ORTHOGRAPHIC
 
 class SceneArrays(NamedTuple):
     """Geometry and materials, primitives in BVH order."""
-    node_bounds: np.ndarray    # (m, 6) float64
-    node_offset: np.ndarray    # (m,) int32
-    node_count: np.ndarray     # (m,) int32
+    nodes: np.ndarray          # (64 r,) float32 8-wide BVH nodes (bvh.wide_bvh); view as int32 for refs
     prim_type: np.ndarray      # (n,) int32, see geometry.intersect
     prim_geom: np.ndarray      # (n, 9) float64
     prim_object: np.ndarray    # (n,) int32, index into scene.objects
@@ -190,7 +188,7 @@ def compile_scene(scene: m.Scene) -> SceneArrays:
         center, radius = np.zeros(3), 1.0
     c = np.ascontiguousarray
     return SceneArrays(
-        node_bounds=c(nb), node_offset=c(noff), node_count=c(ncnt),
+        nodes=wide_bvh(nb, noff, ncnt),
         prim_type=c(types[order]), prim_geom=c(geoms[order]),
         prim_object=c(objs[order]), prim_index=c(local[order]),
         prim_scale=c(scale[order]), prim_area=c(areas[order]),

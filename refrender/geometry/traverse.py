@@ -5,10 +5,13 @@ import numpy as np
 from numba import prange
 
 from .._jit import hot, inline, kernel
-from .bvh import TRAVERSAL_STACK
+from .bvh import RECORD, WIDE_STACK
 from .intersect import intersect_prim
+from .intrinsics import box8_entry, lowest_bit, popcount, prefetch
 
 INF = math.inf
+#: the traversal stack's first _S entries hold the entry distances of a node's children
+_S = 8
 
 
 @hot
@@ -19,62 +22,71 @@ def _safe_inv(d):
 
 
 @hot
-def _box_entry(nb, i, ox, oy, oz, ix, iy, iz, tmax):
-    """Entry distance of the ray into box i (slab test), or inf if missed.
-
-    The near and far planes are chosen by the sign of the inverse direction
-    (no swaps), so an empty (inverted, min > max) box is never entered.
-    """
-    if ix >= 0.0:
-        t0 = (nb[i, 0] - ox) * ix
-        t1 = (nb[i, 3] - ox) * ix
-    else:
-        t0 = (nb[i, 3] - ox) * ix
-        t1 = (nb[i, 0] - ox) * ix
-    if iy >= 0.0:
-        u0 = (nb[i, 1] - oy) * iy
-        u1 = (nb[i, 4] - oy) * iy
-    else:
-        u0 = (nb[i, 4] - oy) * iy
-        u1 = (nb[i, 1] - oy) * iy
-    if iz >= 0.0:
-        w0 = (nb[i, 2] - oz) * iz
-        w1 = (nb[i, 5] - oz) * iz
-    else:
-        w0 = (nb[i, 5] - oz) * iz
-        w1 = (nb[i, 2] - oz) * iz
-    tn = max(max(t0, u0), max(w0, 0.0))
-    # widen the exit by 2 ulps-ish so that rounding never culls a real hit
-    tf = min(min(t1, u1), min(w1, tmax)) * 1.0000000000000004
-    if tn <= tf:
-        return tn
-    return INF
+def _near_planes(ix, iy, iz):
+    """Offsets (0 or 3) of the near slab plane per axis, from the direction's signs."""
+    return (0 if ix >= 0.0 else 3), (0 if iy >= 0.0 else 3), (0 if iz >= 0.0 else 3)
 
 
 @hot
-def closest_hit(nb, noff, ncnt, prim_type, prim_geom, stack, ox, oy, oz, dx, dy, dz,
+def _push_sorted(stack, sp, s0, t, ref, cnt):
+    """Insert (t, ref, cnt) into the pending entries s0..sp-1 of ``stack`` so that
+    the nearest is on top (popped first; on equal t the earlier child).
+    Returns the new stack size."""
+    i = sp
+    while i > s0 and stack[_S + 3 * (i - 1)] <= t:
+        stack[_S + 3 * i] = stack[_S + 3 * (i - 1)]
+        stack[_S + 3 * i + 1] = stack[_S + 3 * (i - 1) + 1]
+        stack[_S + 3 * i + 2] = stack[_S + 3 * (i - 1) + 2]
+        i -= 1
+    stack[_S + 3 * i] = t
+    stack[_S + 3 * i + 1] = ref
+    stack[_S + 3 * i + 2] = cnt
+    return sp + 1
+
+
+@hot
+def closest_hit(nodes, nodes_i, prim_type, prim_geom, stack, ox, oy, oz, dx, dy, dz,
                 tmin, tmax, skip):
     """Nearest hit with t in (tmin, tmax), ignoring primitive ``skip`` (-1: none).
 
-    ``stack`` is scratch space of TRAVERSAL_STACK int32 (see new_stack).
+    ``nodes``/``nodes_i`` are the 8-wide BVH (bvh.wide_bvh) as float32 and
+    int32; ``stack`` is scratch space from new_stack.  Children are visited
+    nearest entry first and pending ones culled against the best hit so far.
     Returns (prim, t, u, v); prim = -1 on a miss.
     """
     ix = _safe_inv(dx)
     iy = _safe_inv(dy)
     iz = _safe_inv(dz)
+    pnx, pny, pnz = _near_planes(ix, iy, iz)
     best = -1
     bt = tmax
     bu = 0.0
     bv = 0.0
-    if _box_entry(nb, 0, ox, oy, oz, ix, iy, iz, bt) == INF:
-        return best, INF, bu, bv
     sp = 0
-    node = 0
+    ref = 0
+    cnt = 0
     while True:
-        cnt = ncnt[node]
-        if cnt > 0:
-            start = noff[node]
-            for k in range(start, start + cnt):
+        if cnt == 0:
+            base = ref * RECORD
+            mask = box8_entry(nodes, base, ox, oy, oz, ix, iy, iz, pnx, pny, pnz, bt, stack)
+            if mask != 0:
+                c = lowest_bit(mask)
+                if popcount(mask) == 1:
+                    ref = nodes_i[base + 48 + c]
+                    cnt = nodes_i[base + 56 + c]
+                    continue
+                s0 = sp
+                while mask != 0:
+                    c = lowest_bit(mask)
+                    mask &= mask - 1
+                    sp = _push_sorted(stack, sp, s0, stack[c], nodes_i[base + 48 + c],
+                                      nodes_i[base + 56 + c])
+                sp -= 1
+                ref = int(stack[_S + 3 * sp + 1])
+                cnt = int(stack[_S + 3 * sp + 2])
+                continue
+        else:
+            for k in range(ref, ref + cnt):
                 if k == skip:
                     continue
                 t, u, v = intersect_prim(prim_type[k], prim_geom, k, ox, oy, oz,
@@ -84,93 +96,89 @@ def closest_hit(nb, noff, ncnt, prim_type, prim_geom, stack, ox, oy, oz, dx, dy,
                     bu = u
                     bv = v
                     best = k
-        else:
-            left = noff[node]
-            tl = _box_entry(nb, left, ox, oy, oz, ix, iy, iz, bt)
-            tr = _box_entry(nb, left + 1, ox, oy, oz, ix, iy, iz, bt)
-            if tl != INF and tr != INF:
-                if tl <= tr:
-                    stack[sp] = left + 1
-                    node = left
-                else:
-                    stack[sp] = left
-                    node = left + 1
-                sp += 1
-                continue
-            if tl != INF:
-                node = left
-                continue
-            if tr != INF:
-                node = left + 1
-                continue
-        # pop, skipping nodes now farther than the best hit
+        # pop the nearest pending child still in front of the best hit
         found = False
+        lim = bt * 1.0000000000000004
         while sp > 0:
             sp -= 1
-            node = stack[sp]
-            if _box_entry(nb, node, ox, oy, oz, ix, iy, iz, bt) != INF:
+            if stack[_S + 3 * sp] <= lim:
                 found = True
                 break
         if not found:
             break
+        ref = int(stack[_S + 3 * sp + 1])
+        cnt = int(stack[_S + 3 * sp + 2])
     if best < 0:
         return -1, INF, 0.0, 0.0
     return best, bt, bu, bv
 
 
 @hot
-def occluded(nb, noff, ncnt, prim_type, prim_geom, stack, ox, oy, oz, dx, dy, dz,
+def occluded(nodes, nodes_i, prim_type, prim_geom, stack, ox, oy, oz, dx, dy, dz,
              tmin, tmax, skip_a, skip_b):
     """True if any primitive other than skip_a/skip_b is hit with t in (tmin, tmax)."""
     ix = _safe_inv(dx)
     iy = _safe_inv(dy)
     iz = _safe_inv(dz)
-    if _box_entry(nb, 0, ox, oy, oz, ix, iy, iz, tmax) == INF:
-        return False
-    stack[0] = 0
-    sp = 1
-    while sp > 0:
-        sp -= 1
-        node = stack[sp]
-        cnt = ncnt[node]
-        if cnt > 0:
-            start = noff[node]
-            for k in range(start, start + cnt):
+    pnx, pny, pnz = _near_planes(ix, iy, iz)
+    sp = 0
+    ref = 0
+    cnt = 0
+    while True:
+        if cnt == 0:
+            base = ref * RECORD
+            mask = box8_entry(nodes, base, ox, oy, oz, ix, iy, iz, pnx, pny, pnz, tmax, stack)
+            if mask != 0:
+                c = lowest_bit(mask)
+                mask &= mask - 1
+                ref = nodes_i[base + 48 + c]
+                cnt = nodes_i[base + 56 + c]
+                while mask != 0:
+                    c = lowest_bit(mask)
+                    mask &= mask - 1
+                    stack[_S + 3 * sp + 1] = nodes_i[base + 48 + c]
+                    stack[_S + 3 * sp + 2] = nodes_i[base + 56 + c]
+                    sp += 1
+                continue
+        else:
+            for k in range(ref, ref + cnt):
                 if k == skip_a or k == skip_b:
                     continue
                 t, u, v = intersect_prim(prim_type[k], prim_geom, k, ox, oy, oz,
                                          dx, dy, dz, tmin, tmax)
                 if t < tmax:
                     return True
-        else:
-            left = noff[node]
-            if _box_entry(nb, left, ox, oy, oz, ix, iy, iz, tmax) != INF:
-                stack[sp] = left
-                sp += 1
-            if _box_entry(nb, left + 1, ox, oy, oz, ix, iy, iz, tmax) != INF:
-                stack[sp] = left + 1
-                sp += 1
-    return False
+        if sp == 0:
+            return False
+        sp -= 1
+        ref = int(stack[_S + 3 * sp + 1])
+        cnt = int(stack[_S + 3 * sp + 2])
 
 
 @inline
 def new_stack():
-    """Scratch traversal stack (allocate once per path or per batch of rays)."""
-    return np.empty(TRAVERSAL_STACK, dtype=np.int32)
+    """Scratch traversal stack (allocate once per path or per batch of rays):
+    eight entry distances of the node in hand, then WIDE_STACK pending
+    children of three float64 each (entry distance, reference, count)."""
+    return np.empty(_S + 3 * WIDE_STACK)
 
 
 BATCH = 4096
 
 
 @kernel(parallel=True)
-def trace_batch(nb, noff, ncnt, prim_type, prim_geom, origins, directions,
+def trace_batch(nodes, nodes_i, prim_type, prim_geom, origins, directions,
                 out_prim, out_t, out_u, out_v):
-    """Closest hits of many rays (parallel over blocks of rays; each ray is independent)."""
+    """Closest hits of many rays, one ray after the other (parallel over blocks).
+
+    The kernel for coherent rays (camera rays); see trace_stream for
+    incoherent ones.  Each ray is independent.
+    """
     n = origins.shape[0]
     for b in prange((n + BATCH - 1) // BATCH):
         stack = new_stack()
         for i in range(b * BATCH, min(n, (b + 1) * BATCH)):
-            p, t, u, v = closest_hit(nb, noff, ncnt, prim_type, prim_geom, stack,
+            p, t, u, v = closest_hit(nodes, nodes_i, prim_type, prim_geom, stack,
                                      origins[i, 0], origins[i, 1], origins[i, 2],
                                      directions[i, 0], directions[i, 1], directions[i, 2],
                                      0.0, INF, -1)
@@ -178,3 +186,198 @@ def trace_batch(nb, noff, ncnt, prim_type, prim_geom, origins, directions,
             out_t[i] = t
             out_u[i] = u
             out_v[i] = v
+
+
+# --------------------------------------------------------------------------
+# Interleaved traversal of many rays (batch queries of incoherent rays).
+# --------------------------------------------------------------------------
+
+#: rays traversed together by one thread in the interleaved kernel
+LANES = 16
+#: rays per parallel work item of the interleaved kernel
+STREAM_BLOCK = 2048
+#: bytes of one prim_geom row (9 float64)
+_ROW_BYTES = 72
+
+
+@hot
+def _prefetch_item(nodes, prim_geom, prim_type, ref, cnt):
+    """Prefetch what visiting (ref, cnt) will read: a node or a leaf's rows."""
+    if cnt == 0:
+        b = ref * (4 * RECORD)
+        prefetch(nodes, b)
+        prefetch(nodes, b + 64)
+        prefetch(nodes, b + 128)
+        prefetch(nodes, b + 192)
+    else:
+        b = ref * _ROW_BYTES
+        e = (ref + cnt) * _ROW_BYTES
+        while b < e:
+            prefetch(prim_geom, b)
+            b += 64
+        prefetch(prim_geom, e - 1)
+        prefetch(prim_type, ref * 4)
+
+
+@kernel
+def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo, hi,
+                  out_prim, out_t, out_u, out_v):
+    """Closest hits of rays lo..hi-1, LANES rays interleaved with prefetching.
+
+    Each lane advances its ray by one traversal step (one node or one leaf)
+    per round and prefetches what its next step reads, so that the memory
+    latency of one ray is hidden behind the steps of the others.  Every ray
+    takes exactly the steps of closest_hit (same order, same culling), so
+    the results are those of the one-ray-at-a-time kernel.
+    """
+    K = LANES
+    ray = np.full(K, -1, np.int64)
+    cur_ref = np.zeros(K, np.int64)
+    cur_cnt = np.zeros(K, np.int64)
+    R = np.empty((K, 9))
+    bt = np.empty(K)
+    bu = np.empty(K)
+    bv = np.empty(K)
+    best = np.empty(K, np.int64)
+    stacks = np.empty((K, _S + 3 * WIDE_STACK))
+    sp = np.zeros(K, np.int64)
+    nxt = lo
+    active = 0
+    for j in range(K):
+        if nxt < hi:
+            i = nxt
+            nxt += 1
+            R[j, 0] = origins[i, 0]
+            R[j, 1] = origins[i, 1]
+            R[j, 2] = origins[i, 2]
+            R[j, 3] = directions[i, 0]
+            R[j, 4] = directions[i, 1]
+            R[j, 5] = directions[i, 2]
+            R[j, 6] = _safe_inv(R[j, 3])
+            R[j, 7] = _safe_inv(R[j, 4])
+            R[j, 8] = _safe_inv(R[j, 5])
+            ray[j] = i
+            bt[j] = INF
+            best[j] = -1
+            bu[j] = 0.0
+            bv[j] = 0.0
+            sp[j] = 0
+            cur_ref[j] = 0
+            cur_cnt[j] = 0
+            active += 1
+    while active > 0:
+        for j in range(K):
+            if ray[j] < 0:
+                continue
+            stack = stacks[j]
+            ox = R[j, 0]
+            oy = R[j, 1]
+            oz = R[j, 2]
+            ix = R[j, 6]
+            iy = R[j, 7]
+            iz = R[j, 8]
+            t_best = bt[j]
+            cnt = cur_cnt[j]
+            ref = cur_ref[j]
+            s = sp[j]
+            if cnt == 0:
+                pnx, pny, pnz = _near_planes(ix, iy, iz)
+                base = ref * RECORD
+                mask = box8_entry(nodes, base, ox, oy, oz, ix, iy, iz, pnx, pny, pnz,
+                                  t_best, stack)
+                if mask != 0:
+                    c = lowest_bit(mask)
+                    if popcount(mask) == 1:
+                        ref = nodes_i[base + 48 + c]
+                        cnt = nodes_i[base + 56 + c]
+                    else:
+                        s0 = s
+                        while mask != 0:
+                            c = lowest_bit(mask)
+                            mask &= mask - 1
+                            s = _push_sorted(stack, s, s0, stack[c], nodes_i[base + 48 + c],
+                                             nodes_i[base + 56 + c])
+                        s -= 1
+                        ref = int(stack[_S + 3 * s + 1])
+                        cnt = int(stack[_S + 3 * s + 2])
+                        sp[j] = s
+                    cur_ref[j] = ref
+                    cur_cnt[j] = cnt
+                    _prefetch_item(nodes, prim_geom, prim_type, ref, cnt)
+                    continue
+            else:
+                dx = R[j, 3]
+                dy = R[j, 4]
+                dz = R[j, 5]
+                for k in range(ref, ref + cnt):
+                    t, u, v = intersect_prim(prim_type[k], prim_geom, k, ox, oy, oz,
+                                             dx, dy, dz, 0.0, t_best)
+                    if t < t_best:
+                        t_best = t
+                        bu[j] = u
+                        bv[j] = v
+                        best[j] = k
+                bt[j] = t_best
+            # pop the nearest pending child still in front of the best hit
+            found = False
+            lim = t_best * 1.0000000000000004
+            while s > 0:
+                s -= 1
+                if stack[_S + 3 * s] <= lim:
+                    found = True
+                    break
+            sp[j] = s
+            if found:
+                ref = int(stack[_S + 3 * s + 1])
+                cnt = int(stack[_S + 3 * s + 2])
+                cur_ref[j] = ref
+                cur_cnt[j] = cnt
+                _prefetch_item(nodes, prim_geom, prim_type, ref, cnt)
+                continue
+            # this ray is done: write it and start the next one in this lane
+            i = ray[j]
+            if best[j] < 0:
+                out_prim[i] = -1
+                out_t[i] = INF
+                out_u[i] = 0.0
+                out_v[i] = 0.0
+            else:
+                out_prim[i] = best[j]
+                out_t[i] = t_best
+                out_u[i] = bu[j]
+                out_v[i] = bv[j]
+            if nxt < hi:
+                i = nxt
+                nxt += 1
+                R[j, 0] = origins[i, 0]
+                R[j, 1] = origins[i, 1]
+                R[j, 2] = origins[i, 2]
+                R[j, 3] = directions[i, 0]
+                R[j, 4] = directions[i, 1]
+                R[j, 5] = directions[i, 2]
+                R[j, 6] = _safe_inv(R[j, 3])
+                R[j, 7] = _safe_inv(R[j, 4])
+                R[j, 8] = _safe_inv(R[j, 5])
+                ray[j] = i
+                bt[j] = INF
+                best[j] = -1
+                bu[j] = 0.0
+                bv[j] = 0.0
+                sp[j] = 0
+                cur_ref[j] = 0
+                cur_cnt[j] = 0
+                _prefetch_item(nodes, prim_geom, prim_type, 0, 0)
+            else:
+                ray[j] = -1
+                active -= 1
+
+
+@kernel(parallel=True)
+def trace_stream(nodes, nodes_i, prim_type, prim_geom, origins, directions,
+                 out_prim, out_t, out_u, out_v):
+    """Closest hits of many rays with the interleaved kernel (parallel over blocks)."""
+    n = origins.shape[0]
+    for b in prange((n + STREAM_BLOCK - 1) // STREAM_BLOCK):
+        _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions,
+                      b * STREAM_BLOCK, min(n, (b + 1) * STREAM_BLOCK),
+                      out_prim, out_t, out_u, out_v)

@@ -208,10 +208,11 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
     n_lights = L.light_pmf.shape[0]
     env = L.env
     stack = new_stack()
+    nodes_i = S.nodes.view(np.int32)
     mscratch = np.empty(S.mat_params.shape[1])   # material row with textures applied
     has_env = (env[0] > 0.0 or env[1] > 0.0 or env[2] > 0.0) and L.env_image.shape[0] > 0
     while True:
-        prim, t, hu, hv = closest_hit(S.node_bounds, S.node_offset, S.node_count,
+        prim, t, hu, hv = closest_hit(S.nodes, nodes_i,
                                       S.prim_type, S.prim_geom, stack, ox, oy, oz, dx, dy, dz,
                                       0.0, math.inf, skip)
         rays += 1
@@ -300,7 +301,7 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
                     smax = sd * (1.0 - SHADOW_SHORTEN)
             if pdf_l > 0.0 and (cos_i > 0.0 or below):
                 rays += 1
-                if not occluded(S.node_bounds, S.node_offset, S.node_count, S.prim_type,
+                if not occluded(S.nodes, nodes_i, S.prim_type,
                                 S.prim_geom, stack, qx, qy, qz, sdx, sdy, sdz, 0.0, smax,
                                 self_skip, lp):
                     fr, fg, fb = bsdf_eval(mkind, mp, front, nx, ny, nz, wox, woy, woz,
