@@ -80,5 +80,5 @@ def trace(scene, origins, directions, *, arrays: SceneArrays | None = None,
     run(S.nodes, S.nodes.view(np.int32), S.prim_type, S.prim_geom, o, d, k, t, u, v)
     hit = k >= 0
     obj = np.where(hit, S.prim_object[np.maximum(k, 0)] if len(S.prim_object) else -1, -1).astype(np.int32)
-    prim = np.where(hit, S.prim_index[np.maximum(k, 0)] if len(S.prim_index) else -1, -1)
+    prim = np.where(hit, S.prim_index[np.maximum(k, 0)] if len(S.prim_index) else -1, -1).astype(np.int64)
     return Hits(t, obj, prim, u, v)

@@ -41,10 +41,10 @@ _PROJECTIONS = {"perspective": CAM_PERSPECTIVE, "orthographic": CAM_ORTHOGRAPHIC
 class SceneArrays(NamedTuple):
     """Geometry and materials, primitives in BVH order."""
     nodes: np.ndarray          # (64 r,) float32 8-wide BVH nodes (bvh.wide_bvh); view as int32 for refs
-    prim_type: np.ndarray      # (n,) int32, see geometry.intersect
+    prim_type: np.ndarray      # (n,) int8, see geometry.intersect
     prim_geom: np.ndarray      # (n, 9) float64
     prim_object: np.ndarray    # (n,) int32, index into scene.objects
-    prim_index: np.ndarray     # (n,) int64, primitive index within its object
+    prim_index: np.ndarray     # (n,) int32, primitive index within its object
     prim_scale: np.ndarray     # (n,) float64, coordinate magnitude (ray offsets)
     prim_area: np.ndarray      # (n,) float64, m^2
     obj_material: np.ndarray   # (k,) int32, row of the material table
@@ -54,7 +54,8 @@ class SceneArrays(NamedTuple):
     mat_params: np.ndarray     # (q, MAT_PARAMS) float64
     center: np.ndarray         # (3,) centre of the bounding sphere of all geometry
     radius: float              # its radius (> 0)
-    prim_uv: np.ndarray        # (n, 7) float64: has_uv, uv of a, b, c (mesh triangles)
+    prim_uv: np.ndarray        # (n, 7) float64: has_uv, uv of a, b, c (mesh triangles);
+                               # (1, 7) zeros when no primitive has UVs (read row min(k, len - 1))
     tex_info: np.ndarray       # (T, TEX_INFO) float64, see materials.textures
     tex_data: np.ndarray       # float32 texels of every texture, concatenated
 
@@ -159,24 +160,24 @@ def compile_scene(scene: m.Scene) -> SceneArrays:
         geoms.append(g)
         areas.append(a)
         objs.append(np.full(len(t), i, dtype=np.int32))
-        local.append(np.arange(len(t), dtype=np.int64))
+        local.append(np.arange(len(t), dtype=np.int32))
         uvs.append(_prim_uv(obj.shape, len(t)))
         obj_material[i] = index[obj.material] if obj.material is not None else 0
         obj_emission[i] = obj.emission + material_emission(scene.materials.get(obj.material))
         obj_two_sided[i] = 1 if obj.two_sided else 0
     if types:
-        types = np.concatenate(types).astype(np.int32)
+        types = np.concatenate(types).astype(np.int8)
         geoms = np.concatenate(geoms)
         areas = np.concatenate(areas)
         objs = np.concatenate(objs)
         local = np.concatenate(local)
         uvs = np.concatenate(uvs)
     else:
-        types = np.zeros(0, np.int32)
+        types = np.zeros(0, np.int8)
         geoms = np.zeros((0, 9))
         areas = np.zeros(0)
         objs = np.zeros(0, np.int32)
-        local = np.zeros(0, np.int64)
+        local = np.zeros(0, np.int32)
         uvs = np.zeros((0, 7))
     bmin, bmax, scale = _bounds(types, geoms)
     order, nb, noff, ncnt = build_bvh(bmin, bmax)
@@ -194,7 +195,8 @@ def compile_scene(scene: m.Scene) -> SceneArrays:
         prim_scale=c(scale[order]), prim_area=c(areas[order]),
         obj_material=obj_material, obj_emission=obj_emission, obj_two_sided=obj_two_sided,
         mat_type=mat_type, mat_params=mat_params, center=center, radius=radius,
-        prim_uv=c(uvs[order]), tex_info=tex_info, tex_data=tex_data)
+        prim_uv=c(uvs[order]) if uvs[:, 0].any() else np.zeros((1, 7)),
+        tex_info=tex_info, tex_data=tex_data)
 
 
 def light_power(scene: m.Scene, arrays: SceneArrays):

@@ -42,7 +42,7 @@ _V8F64 = ir.VectorType(_F64, 8)
 
 
 @intrinsic
-def box8_entry(typingctx, nodes, base, ox, oy, oz, ix, iy, iz, nx, ny, nz, tmax, tout):
+def box8_entry(typingctx, nodes, base, ox, oy, oz, ix, iy, iz, nx, ny, nz, tmax, tout, toff):
     """Entry distances of a ray into the 8 child boxes of a wide node.
 
     ``nodes`` float32 (1-D, C): plane ``p`` (min x, y, z, max x, y, z) of child
@@ -51,7 +51,7 @@ def box8_entry(typingctx, nodes, base, ox, oy, oz, ix, iy, iz, nx, ny, nz, tmax,
     Computes, exactly as the scalar slab test (float64, same operations, same
     order, the exit widened by the same factor), for every child:
     ``tn = max(tx0, ty0, tz0, 0)``, ``tf = min(tx1, ty1, tz1, tmax) * (1 + 2^-51)``,
-    stores the eight ``tn`` in ``tout[0:8]`` (float64) and returns the bit
+    stores the eight ``tn`` in ``tout[toff:toff + 8]`` (float64) and returns the bit
     mask (int64) of the children with ``tn <= tf``.  No NaN can arise for
     finite origins and inverse directions; boxes with min > max (empty
     slots) are never entered.
@@ -59,11 +59,11 @@ def box8_entry(typingctx, nodes, base, ox, oy, oz, ix, iy, iz, nx, ny, nz, tmax,
     if not (isinstance(nodes, types.Array) and nodes.dtype == types.float32
             and isinstance(tout, types.Array) and tout.dtype == types.float64):
         return None
-    sig = types.int64(nodes, base, ox, oy, oz, ix, iy, iz, nx, ny, nz, tmax, tout)
+    sig = types.int64(nodes, base, ox, oy, oz, ix, iy, iz, nx, ny, nz, tmax, tout, toff)
 
     def codegen(context, builder, signature, args):
         (a_nodes, a_base, a_ox, a_oy, a_oz, a_ix, a_iy, a_iz,
-         a_nx, a_ny, a_nz, a_tmax, a_tout) = args
+         a_nx, a_ny, a_nz, a_tmax, a_tout, a_toff) = args
         st = signature.args
         ary = context.make_array(st[0])(context, builder, a_nodes)
         out = context.make_array(st[12])(context, builder, a_tout)
@@ -117,7 +117,8 @@ def box8_entry(typingctx, nodes, base, ox, oy, oz, ix, iy, iz, nx, ny, nz, tmax,
         tf = builder.fmul(tf, ir.Constant(_V8F64, [1.0000000000000004] * 8))
         hit = builder.fcmp_ordered("<=", tn, tf)
         bits = builder.bitcast(hit, ir.IntType(8))
-        optr = builder.bitcast(out.data, _V8F64.as_pointer())
+        toff = context.cast(builder, a_toff, st[13], types.intp)
+        optr = builder.bitcast(builder.gep(out.data, [toff]), _V8F64.as_pointer())
         builder.store(tn, optr, align=8)
         return builder.zext(bits, ir.IntType(64))
 

@@ -28,19 +28,21 @@ def _near_planes(ix, iy, iz):
 
 
 @hot
-def _push_sorted(stack, sp, s0, t, ref, cnt):
-    """Insert (t, ref, cnt) into the pending entries s0..sp-1 of ``stack`` so that
-    the nearest is on top (popped first; on equal t the earlier child).
-    Returns the new stack size."""
+def _push_sorted(stack, off, sp, s0, t, ref, cnt):
+    """Insert (t, ref, cnt) into the pending entries s0..sp-1 of the stack at
+    ``stack[off:]`` so that the nearest is on top (popped first; on equal t
+    the earlier child).  Returns the new stack size."""
     i = sp
-    while i > s0 and stack[_S + 3 * (i - 1)] <= t:
-        stack[_S + 3 * i] = stack[_S + 3 * (i - 1)]
-        stack[_S + 3 * i + 1] = stack[_S + 3 * (i - 1) + 1]
-        stack[_S + 3 * i + 2] = stack[_S + 3 * (i - 1) + 2]
+    e = off + _S + 3 * i
+    while i > s0 and stack[e - 3] <= t:
+        stack[e] = stack[e - 3]
+        stack[e + 1] = stack[e - 2]
+        stack[e + 2] = stack[e - 1]
         i -= 1
-    stack[_S + 3 * i] = t
-    stack[_S + 3 * i + 1] = ref
-    stack[_S + 3 * i + 2] = cnt
+        e -= 3
+    stack[e] = t
+    stack[e + 1] = ref
+    stack[e + 2] = cnt
     return sp + 1
 
 
@@ -68,7 +70,7 @@ def closest_hit(nodes, nodes_i, prim_type, prim_geom, stack, ox, oy, oz, dx, dy,
     while True:
         if cnt == 0:
             base = ref * RECORD
-            mask = box8_entry(nodes, base, ox, oy, oz, ix, iy, iz, pnx, pny, pnz, bt, stack)
+            mask = box8_entry(nodes, base, ox, oy, oz, ix, iy, iz, pnx, pny, pnz, bt, stack, 0)
             if mask != 0:
                 c = lowest_bit(mask)
                 if popcount(mask) == 1:
@@ -79,7 +81,7 @@ def closest_hit(nodes, nodes_i, prim_type, prim_geom, stack, ox, oy, oz, dx, dy,
                 while mask != 0:
                     c = lowest_bit(mask)
                     mask &= mask - 1
-                    sp = _push_sorted(stack, sp, s0, stack[c], nodes_i[base + 48 + c],
+                    sp = _push_sorted(stack, 0, sp, s0, stack[c], nodes_i[base + 48 + c],
                                       nodes_i[base + 56 + c])
                 sp -= 1
                 ref = int(stack[_S + 3 * sp + 1])
@@ -127,7 +129,7 @@ def occluded(nodes, nodes_i, prim_type, prim_geom, stack, ox, oy, oz, dx, dy, dz
     while True:
         if cnt == 0:
             base = ref * RECORD
-            mask = box8_entry(nodes, base, ox, oy, oz, ix, iy, iz, pnx, pny, pnz, tmax, stack)
+            mask = box8_entry(nodes, base, ox, oy, oz, ix, iy, iz, pnx, pny, pnz, tmax, stack, 0)
             if mask != 0:
                 c = lowest_bit(mask)
                 mask &= mask - 1
@@ -216,7 +218,7 @@ def _prefetch_item(nodes, prim_geom, prim_type, ref, cnt):
             prefetch(prim_geom, b)
             b += 64
         prefetch(prim_geom, e - 1)
-        prefetch(prim_type, ref * 4)
+        prefetch(prim_type, ref * prim_type.itemsize)
 
 
 @kernel
@@ -239,7 +241,8 @@ def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo,
     bu = np.empty(K)
     bv = np.empty(K)
     best = np.empty(K, np.int64)
-    stacks = np.empty((K, _S + 3 * WIDE_STACK))
+    stride = _S + 3 * WIDE_STACK
+    stack = np.empty(K * stride)
     sp = np.zeros(K, np.int64)
     nxt = lo
     active = 0
@@ -269,7 +272,7 @@ def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo,
         for j in range(K):
             if ray[j] < 0:
                 continue
-            stack = stacks[j]
+            so = j * stride
             ox = R[j, 0]
             oy = R[j, 1]
             oz = R[j, 2]
@@ -284,7 +287,7 @@ def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo,
                 pnx, pny, pnz = _near_planes(ix, iy, iz)
                 base = ref * RECORD
                 mask = box8_entry(nodes, base, ox, oy, oz, ix, iy, iz, pnx, pny, pnz,
-                                  t_best, stack)
+                                  t_best, stack, so)
                 if mask != 0:
                     c = lowest_bit(mask)
                     if popcount(mask) == 1:
@@ -295,11 +298,11 @@ def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo,
                         while mask != 0:
                             c = lowest_bit(mask)
                             mask &= mask - 1
-                            s = _push_sorted(stack, s, s0, stack[c], nodes_i[base + 48 + c],
-                                             nodes_i[base + 56 + c])
+                            s = _push_sorted(stack, so, s, s0, stack[so + c],
+                                             nodes_i[base + 48 + c], nodes_i[base + 56 + c])
                         s -= 1
-                        ref = int(stack[_S + 3 * s + 1])
-                        cnt = int(stack[_S + 3 * s + 2])
+                        ref = int(stack[so + _S + 3 * s + 1])
+                        cnt = int(stack[so + _S + 3 * s + 2])
                         sp[j] = s
                     cur_ref[j] = ref
                     cur_cnt[j] = cnt
@@ -323,13 +326,13 @@ def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo,
             lim = t_best * 1.0000000000000004
             while s > 0:
                 s -= 1
-                if stack[_S + 3 * s] <= lim:
+                if stack[so + _S + 3 * s] <= lim:
                     found = True
                     break
             sp[j] = s
             if found:
-                ref = int(stack[_S + 3 * s + 1])
-                cnt = int(stack[_S + 3 * s + 2])
+                ref = int(stack[so + _S + 3 * s + 1])
+                cnt = int(stack[so + _S + 3 * s + 2])
                 cur_ref[j] = ref
                 cur_cnt[j] = cnt
                 _prefetch_item(nodes, prim_geom, prim_type, ref, cnt)

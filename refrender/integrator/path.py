@@ -257,7 +257,7 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
             break
         mp = S.mat_params[mat]
         if is_textured(mp):
-            tu, tv = surface_uv(kind, g, S.prim_uv[prim], x, y, z, hu, hv)
+            tu, tv = surface_uv(kind, g, S.prim_uv[min(prim, S.prim_uv.shape[0] - 1)], x, y, z, hu, hv)
             resolve_params(mkind, mp, S.tex_info, S.tex_data, tu, tv, mscratch)
             mp = mscratch
         # wo on the front side (outside of a dielectric), decided by the geometric normal
