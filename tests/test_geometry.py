@@ -461,7 +461,7 @@ def test_bvh_of_nothing_is_well_formed():
 @numba.njit
 def _box8_kernel(nodes, base, o, inv, near, tmax, tout):
     return box8_entry(nodes, base, o[0], o[1], o[2], inv[0], inv[1], inv[2],
-                      near[0], near[1], near[2], tmax, tout)
+                      near[0], near[1], near[2], tmax, tout, 0)
 
 
 def _box8(nodes, base, o, d, tmax):
