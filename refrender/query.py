@@ -3,6 +3,7 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
+import numba
 import numpy as np
 
 from .errors import RenderError
@@ -77,7 +78,10 @@ def trace(scene, origins, directions, *, arrays: SceneArrays | None = None,
     if kernel == "auto":
         kernel = "sequential" if is_coherent(o, d, S.radius) else "interleaved"
     run = trace_batch if kernel == "sequential" else trace_stream
-    run(S.nodes, S.nodes.view(np.int32), S.prim_type, S.prim_geom, o, d, k, t, u, v)
+    # blocks of rays are handed to the threads one at a time (dynamic
+    # scheduling: rays differ in cost); each ray's hit does not depend on it
+    with numba.parallel_chunksize(1):
+        run(S.nodes, S.nodes.view(np.int32), S.prim_type, S.prim_geom, o, d, k, t, u, v)
     hit = k >= 0
     obj = np.where(hit, S.prim_object[np.maximum(k, 0)] if len(S.prim_object) else -1, -1).astype(np.int32)
     prim = np.where(hit, S.prim_index[np.maximum(k, 0)] if len(S.prim_index) else -1, -1).astype(np.int64)

@@ -70,8 +70,9 @@ def ray_workload(name, vertices, faces, origins, directions, runs):
     from refrender.geometry.compile import compile_scene
     _, scene = _mesh_scene(vertices, faces)
     S = compile_scene(scene)
+    kernel = "sequential" if q.is_coherent(origins, directions, S.radius) else "interleaved"
     ours = _median_time(lambda: q.trace(scene, origins, directions, arrays=S), runs)
-    row = {"workload": name, "rays": len(origins), "triangles": len(faces),
+    row = {"workload": name, "rays": len(origins), "triangles": len(faces), "kernel": kernel,
            "refrender_mrays_s": len(origins) / ours / 1e6}
     emb = _embree(np.asarray(vertices), np.asarray(faces))
     if emb is not None:
@@ -123,8 +124,11 @@ def path_tracing(runs):
         times.append(r.stats["seconds"])
         rays = r.stats["rays"]
     sec = statistics.median(times)
-    return {"workload": "(d) path tracing reading_nook 320x240 16 spp", "rays": rays,
-            "refrender_mrays_s": rays / sec / 1e6, "seconds": sec}
+    row = {"workload": "(d) path tracing reading_nook 320x240 16 spp", "rays": rays,
+           "refrender_mrays_s": rays / sec / 1e6, "seconds": sec}
+    if "traversal_share" in r.stats:
+        row["traversal_share"] = r.stats["traversal_share"]
+    return row
 
 
 def bvh_build(n, rng):
@@ -134,9 +138,11 @@ def bvh_build(n, rng):
     t = time.perf_counter()
     S = compile_scene(scene)
     sec = time.perf_counter() - t
+    # everything the renderer keeps per scene for geometry: primitives, their
+    # tables and the 8-wide BVH (the per-emitter light tables come on top)
     nbytes = sum(a.nbytes for a in S if isinstance(a, np.ndarray))
-    return {"workload": f"(e) BVH build {n} triangles", "seconds": sec,
-            "bytes_per_triangle": nbytes / n}
+    return {"workload": f"(e) BVH build {n} triangles", "triangles": n, "seconds": sec,
+            "bytes_per_triangle": nbytes / n, "bvh_bytes_per_triangle": S.nodes.nbytes / n}
 
 
 def compile_times():
@@ -150,6 +156,49 @@ def compile_times():
         warm = float(subprocess.run([sys.executable, "-c", code], cwd=ROOT, env=env, check=True,
                                     capture_output=True, text=True).stdout.split()[-1])
     return {"workload": "(f) start to first sample (1 spp of the demo)", "cold_s": cold, "warm_s": warm}
+
+
+#: the targets each workload is measured against (ratios: refrender / Embree on 2 threads)
+RATIO_TARGET = {"(a)": 1.5, "(b)": 1.0, "(c)": 1.5}
+
+
+def markdown_table(rows):
+    """The rows as the README's performance table (figures, ratio, target)."""
+    out = ["| workload | refrender | Embree, 2 threads | ratio | target |",
+           "| --- | --- | --- | --- | --- |"]
+    builds = [r for r in rows if r["workload"].startswith("(e)")]
+    for r in rows:
+        key = r["workload"][:3]
+        if key in RATIO_TARGET:
+            emb = r.get("embree_2threads_mrays_s")
+            ratio = r.get("ratio")
+            target = RATIO_TARGET[key]
+            verdict = "" if ratio is None else (" (met)" if ratio >= target else " (not met)")
+            out.append(f"| {r['workload']} ({r['kernel']} kernel) | {r['refrender_mrays_s']:.2f} Mrays/s | "
+                       + (f"{emb:.2f} Mrays/s | {ratio:.2f} |" if emb else "not installed | |")
+                       + f" >= {target}{verdict} |")
+        elif key == "(d)":
+            share = r.get("traversal_share")
+            cell = f"{r['refrender_mrays_s']:.2f} Mrays/s (all rays)"
+            if share is not None:
+                cell += f", {100 * share:.0f} % of the time in traversal"
+                verdict = " (met)" if 1 - share <= 0.40 else " (not met)"
+            else:
+                verdict = ""
+            out.append(f"| {r['workload']} | {cell} | | | <= 40 % outside traversal{verdict} |")
+        elif key == "(f)":
+            ok = r["cold_s"] < 30 and r["warm_s"] < 2
+            out.append(f"| {r['workload']}, cold / warm cache | {r['cold_s']:.1f} s / {r['warm_s']:.1f} s | | | "
+                       f"< 30 s / < 2 s ({'met' if ok else 'not met'}) |")
+    if builds:
+        secs = " / ".join(f"{b['seconds']:.1f} s" for b in builds)
+        sizes = " / ".join(f"{b['bytes_per_triangle']:.0f}" for b in builds)
+        names = " / ".join(f"{b['triangles'] / 1e6:g} M" for b in builds)
+        first = builds[0]
+        ok = first["seconds"] < 5 and all(b["bytes_per_triangle"] <= 150 for b in builds)
+        out.append(f"| (e) BVH build, {names} triangles | {secs}, {sizes} B per triangle | | | "
+                   f"1 M < 5 s at <= 150 B ({'met' if ok else 'not met'}) |")
+    return "\n".join(out)
 
 
 def main(argv=None):
@@ -175,6 +224,8 @@ def main(argv=None):
     rows.append(compile_times())
     for r in rows:
         print("  ".join(f"{k}={v:.4g}" if isinstance(v, float) else f"{k}={v}" for k, v in r.items()))
+    print()
+    print(markdown_table(rows))
     if args.json:
         Path(args.json).write_text(json.dumps(rows, indent=2))
     return 0

@@ -156,3 +156,18 @@ def lowest_bit(typingctx, x):
         return _int64_call(builder, "llvm.cttz.i64", [v], [ir.Constant(ir.IntType(1), 0)])
 
     return types.int64(x), codegen
+
+
+@intrinsic
+def cycles(typingctx):
+    """The CPU's cycle (time-stamp) counter, for measuring shares of time.
+
+    Only differences taken on one thread within one kernel call mean
+    anything; the values never enter a result.
+    """
+    def codegen(context, builder, signature, args):
+        fnty = ir.FunctionType(ir.IntType(64), [])
+        fn = cgutils.get_or_insert_function(builder.module, fnty, "llvm.readcyclecounter")
+        return builder.call(fn, [])
+
+    return types.int64(), codegen
