@@ -113,32 +113,34 @@ def intersect_disk(G, k, ox, oy, oz, dx, dy, dz, tmin, tmax):
 @hot
 def intersect_triangle(G, k, ox, oy, oz, dx, dy, dz, tmin, tmax):
     """Moller & Trumbore, "Fast, minimum storage ray-triangle intersection",
-    JGT 2(1), 1997.  Returns (t, b1, b2)."""
+    JGT 2(1), 1997.  Returns (t, b1, b2).
+
+    Written without early exits: every quantity is computed and one combined
+    test decides (the same arithmetic as the early-exit form, so the same
+    result), which avoids mispredicted branches in the traversal loop.  A
+    zero determinant gives inf/nan, which every comparison rejects.
+    """
     e1x, e1y, e1z = G[k, 3], G[k, 4], G[k, 5]
     e2x, e2y, e2z = G[k, 6], G[k, 7], G[k, 8]
     px = dy * e2z - dz * e2y
     py = dz * e2x - dx * e2z
     pz = dx * e2y - dy * e2x
     det = e1x * px + e1y * py + e1z * pz
-    if det == 0.0:
-        return INF, 0.0, 0.0
     inv = 1.0 / det
     sx = ox - G[k, 0]
     sy = oy - G[k, 1]
     sz = oz - G[k, 2]
     b1 = (sx * px + sy * py + sz * pz) * inv
-    if b1 < 0.0 or b1 > 1.0:
-        return INF, 0.0, 0.0
     qx = sy * e1z - sz * e1y
     qy = sz * e1x - sx * e1z
     qz = sx * e1y - sy * e1x
     b2 = (dx * qx + dy * qy + dz * qz) * inv
-    if b2 < 0.0 or b1 + b2 > 1.0:
-        return INF, 0.0, 0.0
     t = (e2x * qx + e2y * qy + e2z * qz) * inv
-    if not (t > tmin and t < tmax):
-        return INF, 0.0, 0.0
-    return t, b1, b2
+    ok = (det != 0.0) & (b1 >= 0.0) & (b1 <= 1.0) & (b2 >= 0.0) & (b1 + b2 <= 1.0) \
+        & (t > tmin) & (t < tmax)
+    if ok:
+        return t, b1, b2
+    return INF, 0.0, 0.0
 
 
 @hot
