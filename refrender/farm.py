@@ -157,7 +157,11 @@ def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
     t0 = time.perf_counter()
     parts: dict[tuple[int, int], Result] = {}
     if ranges:
-        remote = client.scatter(payload, broadcast=True)
+        # hash=False: a fresh key per render.  With the content-hash key, a
+        # second render of the same scene right after the first could scatter
+        # while the scheduler still released the first copy, and its tasks were
+        # cancelled for "lost dependencies" (seen in the resume test)
+        remote = client.scatter(payload, broadcast=True, hash=False)
         futures = [client.submit(_render_task, remote, digest, settings, a, b, threads_per_task,
                                  key=f"refrender-{digest[:16]}-{st['seed']}-{a}-{b}",
                                  pure=False, retries=retries) for a, b in ranges]
