@@ -48,16 +48,19 @@ numba.config.CACHE_DIR = os.environ["NUMBA_CACHE_DIR"]
 
 #: Options of every kernel.  ``error_model='numpy'`` makes 1/0 give inf
 #: instead of raising; no fastmath, so NaN/inf checks on radiance still work
-#: and results do not depend on reassociation.
-KERNEL_OPTIONS = dict(cache=True, nogil=True, error_model="numpy")
+#: and results do not depend on reassociation.  No kernel is used as a
+#: first-class function value, so none needs the C-callable wrapper
+#: (``no_cfunc_wrapper``: less to lower and compile).
+KERNEL_OPTIONS = dict(cache=True, nogil=True, error_model="numpy", no_cfunc_wrapper=True)
 
 #: Small helpers: compiled separately, LLVM inlines them where it pays.
-INLINE_OPTIONS = dict(cache=True, nogil=True, error_model="numpy")
+INLINE_OPTIONS = dict(cache=True, nogil=True, error_model="numpy", no_cfunc_wrapper=True)
 
 #: The innermost traversal helpers that take arrays: inlined at the numba IR
 #: level, which removes per-call reference counting of the array arguments
 #: (measured 1.9x on traversal).  Costs compile time, so used sparingly.
-HOT_OPTIONS = dict(cache=True, nogil=True, error_model="numpy", inline="always")
+HOT_OPTIONS = dict(cache=True, nogil=True, error_model="numpy", inline="always",
+                   no_cfunc_wrapper=True)
 
 
 def kernel(fn=None, **extra):
@@ -68,9 +71,31 @@ def kernel(fn=None, **extra):
     return numba.njit(**opts)(fn)
 
 
+class _Helper(numba.core.registry.CPUDispatcher):
+    """A helper compiled without its Python entry point (see inline).
+
+    Calls from Python go to a twin dispatcher that has one; it is not cached,
+    because numba's cache index does not tell the two builds apart.
+    """
+
+    def __call__(self, *args, **kwargs):
+        twin = self.__dict__.get("_py_twin")
+        if twin is None:
+            twin = numba.njit(**dict(INLINE_OPTIONS, cache=False))(self.py_func)
+            self.__dict__["_py_twin"] = twin
+        return twin(*args, **kwargs)
+
+
 def inline(fn):
-    """``numba.njit`` for a small helper."""
-    return numba.njit(**INLINE_OPTIONS)(fn)
+    """``numba.njit`` for a small helper.
+
+    Helpers are called from kernels: they are built without the Python
+    wrapper, which saves a good part of the cold compile time; calling one
+    from Python still works (see _Helper).
+    """
+    d = numba.njit(no_cpython_wrapper=True, **INLINE_OPTIONS)(fn)
+    d.__class__ = _Helper
+    return d
 
 
 def hot(fn):

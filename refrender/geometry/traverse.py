@@ -384,3 +384,10 @@ def trace_stream(nodes, nodes_i, prim_type, prim_geom, origins, directions,
         _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions,
                       b * STREAM_BLOCK, min(n, (b + 1) * STREAM_BLOCK),
                       out_prim, out_t, out_u, out_v)
+
+
+#: closest_hit / occluded as separately compiled functions for the path
+#: tracer: calling them costs a little per ray, but inlining them into the
+#: (large) path kernel made its compile much slower
+closest_hit_fn = kernel(closest_hit.py_func)
+occluded_fn = kernel(occluded.py_func)

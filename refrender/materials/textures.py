@@ -23,6 +23,8 @@ texture index + 1 (0 = none).
 """
 import math
 
+import numpy as np
+
 from .._jit import inline
 from .bsdf import MAT_METALLIC_ROUGHNESS, MAT_ROUGH_CONDUCTOR, MAT_ROUGH_DIELECTRIC
 
@@ -90,11 +92,13 @@ def texture_rgb(info, data, t, u, v):
         off = int(info[t, 1])
         k = 3 if (int(math.floor(su)) + int(math.floor(sv))) % 2 != 0 else 0
         return float(data[off + k]), float(data[off + k + 1]), float(data[off + k + 2])
+    # np.int64(): constant channels would compile one specialisation each
     if int(info[t, 4]) < 3:
-        g = _image_channel(info, data, t, su, sv, 0)
+        g = _image_channel(info, data, t, su, sv, np.int64(0))
         return g, g, g
-    return (_image_channel(info, data, t, su, sv, 0), _image_channel(info, data, t, su, sv, 1),
-            _image_channel(info, data, t, su, sv, 2))
+    return (_image_channel(info, data, t, su, sv, np.int64(0)),
+            _image_channel(info, data, t, su, sv, np.int64(1)),
+            _image_channel(info, data, t, su, sv, np.int64(2)))
 
 
 @inline
