@@ -174,6 +174,7 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
     cam = camera_array(scene)
     row_rays = np.zeros(h, dtype=np.int64)
     row_bad = np.zeros(h, dtype=np.int64)
+    row_time = np.zeros((h, 2), dtype=np.int64)   # cycles of timed paths, of their traversal
     order = _row_order(h)
     mb = -1 if st["max_bounces"] is None else int(st["max_bounces"])
     args = (S, L, cam, np.uint64(st["seed"]), mb, int(st["rr_start"]), _STRATEGIES[st["strategy"]],
@@ -197,6 +198,10 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
         stats = dict(rays=rays, seconds=seconds,
                      mrays_per_s=rays / seconds / 1e6 if seconds > 0 else 0.0,
                      nonfinite_samples=int(prev_stats.get("nonfinite_samples", 0)) + int(row_bad.sum()))
+        if row_time[:, 0].sum() > 0:
+            # share of the path tracer's CPU time spent in BVH traversal and
+            # primitive tests (closest hits and shadow rays), this session
+            stats["traversal_share"] = float(row_time[:, 1].sum() / row_time[:, 0].sum())
         run = dict(stop_reason=stop, complete=stop in ("spp", "time", "target_error"), budget=budget,
                    sessions=int(prev_run.get("sessions", 0)) + 1, kernel_sha256=kernels)
         if target_error is not None:
@@ -241,7 +246,7 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
                 n = max(1, min(n, fit))
             t = _clock()
             render_pass(*args, first_sample + done, n, order, acc_sum, acc_sq, acc_n,
-                        row_rays, row_bad)
+                        row_rays, row_bad, row_time)
             dt = _clock() - t
             done += n
             per_spp = dt / n

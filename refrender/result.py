@@ -239,6 +239,12 @@ def merge(results, names=None) -> Result:
              "seconds": sum(float(r.stats.get("seconds", 0.0)) for r in results),
              "nonfinite_samples": sum(int(r.stats.get("nonfinite_samples", 0)) for r in results)}
     stats["mrays_per_s"] = stats["rays"] / stats["seconds"] / 1e6 if stats["seconds"] > 0 else 0.0
+    timed = [r for r in results if "traversal_share" in r.stats]
+    weight = sum(float(r.stats.get("seconds", 0.0)) for r in timed)
+    if timed and len(timed) == len(results) and weight > 0:
+        # time-weighted, like the share of one render of all the samples
+        stats["traversal_share"] = sum(float(r.stats["traversal_share"]) * float(r.stats.get("seconds", 0.0))
+                                       for r in timed) / weight
     codes = sorted({r.run.get("kernel_sha256") for r in results} - {None})
     if len(codes) > 1:
         warnings.warn(f"merge: the inputs were rendered by different renderer code (kernels "

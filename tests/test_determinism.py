@@ -195,6 +195,18 @@ def test_first_sample_ranges_merge_into_one_render(split_and_whole):
     assert not np.array_equal(a.sum, b.sum)
 
 
+def test_traversal_share_is_a_fraction_and_merges_time_weighted(split_and_whole):
+    """The render statistics carry the share of CPU time in traversal (from the cycle
+    counter on one path in 16); a merge weights the parts' shares by their seconds."""
+    a, b, whole = split_and_whole
+    for r in (a, b, whole):
+        assert 0.0 < r.stats["traversal_share"] < 1.0
+    m = refrender.merge([a, b])
+    sa, sb = a.stats["seconds"], b.stats["seconds"]
+    want = (a.stats["traversal_share"] * sa + b.stats["traversal_share"] * sb) / (sa + sb)
+    assert m.stats["traversal_share"] == pytest.approx(want, rel=1e-12)
+
+
 def test_merge_refuses_overlaps_and_mismatches(box):
     a = refrender.render(box, spp=8, seed=4, first_sample=0)
     overlap = refrender.render(box, spp=8, seed=4, first_sample=4)

@@ -35,6 +35,7 @@ from numba import prange
 
 from .._jit import inline, kernel
 from ..geometry.intersect import SPHERE, is_planar, surface_point, surface_uv
+from ..geometry.intrinsics import cycles
 from ..geometry.traverse import closest_hit_fn as closest_hit, new_stack, occluded_fn as occluded
 from ..materials.bsdf import (MAT_BLACK, bsdf_eval, bsdf_is_delta, bsdf_pdf, bsdf_sample,
                               bsdf_transmits)
@@ -188,8 +189,12 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
 
 
 @kernel
-def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
-    """One camera sample.  Returns (r, g, b, rays traced)."""
+def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, timed):
+    """One camera sample.  Returns (r, g, b, rays traced, cycles in traversal).
+
+    With ``timed`` the CPU cycles spent in closest_hit/occluded are counted
+    (for the traversal share in the render statistics; never in the image)."""
+    tcyc = 0
     # np.int64(): a constant argument would compile one specialisation per value
     ox, oy, oz, dx, dy, dz = camera_ray(cam, px, py, uniform(key, np.int64(2)),
                                         uniform(key, np.int64(3)))
@@ -214,9 +219,13 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
     mscratch = np.empty(S.mat_params.shape[1])   # material row with textures applied
     has_env = (env[0] > 0.0 or env[1] > 0.0 or env[2] > 0.0) and L.env_image.shape[0] > 0
     while True:
+        if timed:
+            c0 = cycles()
         prim, t, hu, hv = closest_hit(S.nodes, nodes_i,
                                       S.prim_type, S.prim_geom, stack, ox, oy, oz, dx, dy, dz,
                                       0.0, math.inf, skip)
+        if timed:
+            tcyc += cycles() - c0
         rays += 1
         if prim < 0:
             if has_env:
@@ -303,9 +312,14 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
                     smax = sd * (1.0 - SHADOW_SHORTEN)
             if pdf_l > 0.0 and (cos_i > 0.0 or below):
                 rays += 1
-                if not occluded(S.nodes, nodes_i, S.prim_type,
-                                S.prim_geom, stack, qx, qy, qz, sdx, sdy, sdz, 0.0, smax,
-                                self_skip, lp):
+                if timed:
+                    c0 = cycles()
+                blocked = occluded(S.nodes, nodes_i, S.prim_type,
+                                   S.prim_geom, stack, qx, qy, qz, sdx, sdy, sdz, 0.0, smax,
+                                   self_skip, lp)
+                if timed:
+                    tcyc += cycles() - c0
+                if not blocked:
                     fr, fg, fb = bsdf_eval(mkind, mp, front, nx, ny, nz, wox, woy, woz,
                                            wix, wiy, wiz)
                     if delta or strategy == STRATEGY_NEE:
@@ -355,13 +369,18 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode):
         dy = wiy
         dz = wiz
         skip = self_skip
-    return lr, lg, lb, rays
+    return lr, lg, lb, rays, tcyc
+
+
+#: one path in TIME_EVERY is timed for the traversal share (the cycle counter
+#: costs tens of cycles per read)
+TIME_EVERY = 16
 
 
 @kernel
 def render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                 x0, y0, x1, y1, width, first_sample, n_samples, row_order, lo, hi,
-                acc_sum, acc_sq, acc_n, row_rays, row_bad):
+                acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time):
     """Add samples first_sample .. first_sample + n_samples - 1 of every pixel
     of rows ``row_order[lo:hi]`` (see render_pass)."""
     for ii in range(lo, hi):
@@ -376,8 +395,16 @@ def render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                 key = path_key(seed, pixel, s)
                 px = xx + uniform(key, np.int64(0))   # (see trace_path)
                 py = yy + uniform(key, np.int64(1))
-                vr, vg, vb, nr = trace_path(S, L, cam, key, px, py, max_bounces, rr_start,
-                                            strategy, mode)
+                # one path in TIME_EVERY is timed (cycles of the whole path and
+                # of its traversal calls) for the traversal share
+                timed = (pixel + s) % TIME_EVERY == 0
+                if timed:
+                    p0 = cycles()
+                vr, vg, vb, nr, tc = trace_path(S, L, cam, key, px, py, max_bounces, rr_start,
+                                                strategy, mode, timed)
+                if timed:
+                    row_time[r, 0] += cycles() - p0
+                    row_time[r, 1] += tc
                 rays += nr
                 if math.isfinite(vr) and math.isfinite(vg) and math.isfinite(vb):
                     acc_sum[r, c, 0] += vr
@@ -397,14 +424,16 @@ def render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
 @kernel(parallel=True)
 def render_pass(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                 x0, y0, x1, y1, width, first_sample, n_samples, row_order,
-                acc_sum, acc_sq, acc_n, row_rays, row_bad):
+                acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time):
     """Add samples first_sample .. first_sample + n_samples - 1 of every pixel.
 
     Each row of the window is one independent work item; inside it, pixels and
     samples are visited in a fixed order, so the accumulators do not depend on
     the thread count.  ``acc_sum``/``acc_sq`` (h, w, 3) float64 sum of values
     and of squares, ``acc_n`` (h, w) int64 valid samples; non-finite samples
-    are excluded and counted in ``row_bad``.
+    are excluded and counted in ``row_bad``.  ``row_time`` (h, 2) int64 adds
+    the CPU cycles of the timed paths (one in TIME_EVERY) and of their
+    traversal calls, for ``stats["traversal_share"]``.
 
     The parallel loop only calls the separately compiled render_rows, so it
     is small and quick to compile (a parallel loop around the whole path
@@ -415,5 +444,5 @@ def render_pass(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
     for ii in prange(row_order.shape[0]):
         render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                     x0, y0, x1, y1, width, first_sample, n_samples, row_order, ii, ii + 1,
-                    acc_sum, acc_sq, acc_n, row_rays, row_bad)
+                    acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time)
     return 0
