@@ -189,11 +189,14 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
 
 
 @kernel
-def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, timed):
+def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, timed,
+               stack, mscratch):
     """One camera sample.  Returns (r, g, b, rays traced, cycles in traversal).
 
-    With ``timed`` the CPU cycles spent in closest_hit/occluded are counted
-    (for the traversal share in the render statistics; never in the image)."""
+    ``stack`` (new_stack) and ``mscratch`` (material row with textures
+    applied) are scratch space reused across paths.  With ``timed`` the CPU
+    cycles spent in closest_hit/occluded are counted (for the traversal
+    share in the render statistics; never in the image)."""
     tcyc = 0
     # np.int64(): a constant argument would compile one specialisation per value
     ox, oy, oz, dx, dy, dz = camera_ray(cam, px, py, uniform(key, np.int64(2)),
@@ -214,9 +217,7 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
     prev_delta = True
     n_lights = L.light_pmf.shape[0]
     env = L.env
-    stack = new_stack()
     nodes_i = S.nodes.view(np.int32)
-    mscratch = np.empty(S.mat_params.shape[1])   # material row with textures applied
     has_env = (env[0] > 0.0 or env[1] > 0.0 or env[2] > 0.0) and L.env_image.shape[0] > 0
     while True:
         if timed:
@@ -383,6 +384,8 @@ def render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                 acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time):
     """Add samples first_sample .. first_sample + n_samples - 1 of every pixel
     of rows ``row_order[lo:hi]`` (see render_pass)."""
+    stack = new_stack()                          # scratch of every path of these rows
+    mscratch = np.empty(S.mat_params.shape[1])
     for ii in range(lo, hi):
         r = row_order[ii]
         yy = y0 + r
@@ -401,7 +404,7 @@ def render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                 if timed:
                     p0 = cycles()
                 vr, vg, vb, nr, tc = trace_path(S, L, cam, key, px, py, max_bounces, rr_start,
-                                                strategy, mode, timed)
+                                                strategy, mode, timed, stack, mscratch)
                 if timed:
                     row_time[r, 0] += cycles() - p0
                     row_time[r, 1] += tc
