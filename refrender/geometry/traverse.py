@@ -221,6 +221,28 @@ def _prefetch_item(nodes, prim_geom, prim_type, ref, cnt):
         prefetch(prim_type, ref * prim_type.itemsize)
 
 
+@hot
+def _start_ray(j, i, origins, directions, R, ray, bt, best, bu, bv, sp, cur_ref, cur_cnt):
+    """Put ray i into lane j of the interleaved kernel, at the root."""
+    R[j, 0] = origins[i, 0]
+    R[j, 1] = origins[i, 1]
+    R[j, 2] = origins[i, 2]
+    R[j, 3] = directions[i, 0]
+    R[j, 4] = directions[i, 1]
+    R[j, 5] = directions[i, 2]
+    R[j, 6] = _safe_inv(R[j, 3])
+    R[j, 7] = _safe_inv(R[j, 4])
+    R[j, 8] = _safe_inv(R[j, 5])
+    ray[j] = i
+    bt[j] = INF
+    best[j] = -1
+    bu[j] = 0.0
+    bv[j] = 0.0
+    sp[j] = 0
+    cur_ref[j] = 0
+    cur_cnt[j] = 0
+
+
 @kernel
 def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo, hi,
                   out_prim, out_t, out_u, out_v):
@@ -250,23 +272,7 @@ def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo,
         if nxt < hi:
             i = nxt
             nxt += 1
-            R[j, 0] = origins[i, 0]
-            R[j, 1] = origins[i, 1]
-            R[j, 2] = origins[i, 2]
-            R[j, 3] = directions[i, 0]
-            R[j, 4] = directions[i, 1]
-            R[j, 5] = directions[i, 2]
-            R[j, 6] = _safe_inv(R[j, 3])
-            R[j, 7] = _safe_inv(R[j, 4])
-            R[j, 8] = _safe_inv(R[j, 5])
-            ray[j] = i
-            bt[j] = INF
-            best[j] = -1
-            bu[j] = 0.0
-            bv[j] = 0.0
-            sp[j] = 0
-            cur_ref[j] = 0
-            cur_cnt[j] = 0
+            _start_ray(j, i, origins, directions, R, ray, bt, best, bu, bv, sp, cur_ref, cur_cnt)
             active += 1
     while active > 0:
         for j in range(K):
@@ -352,23 +358,7 @@ def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo,
             if nxt < hi:
                 i = nxt
                 nxt += 1
-                R[j, 0] = origins[i, 0]
-                R[j, 1] = origins[i, 1]
-                R[j, 2] = origins[i, 2]
-                R[j, 3] = directions[i, 0]
-                R[j, 4] = directions[i, 1]
-                R[j, 5] = directions[i, 2]
-                R[j, 6] = _safe_inv(R[j, 3])
-                R[j, 7] = _safe_inv(R[j, 4])
-                R[j, 8] = _safe_inv(R[j, 5])
-                ray[j] = i
-                bt[j] = INF
-                best[j] = -1
-                bu[j] = 0.0
-                bv[j] = 0.0
-                sp[j] = 0
-                cur_ref[j] = 0
-                cur_cnt[j] = 0
+                _start_ray(j, i, origins, directions, R, ray, bt, best, bu, bv, sp, cur_ref, cur_cnt)
                 _prefetch_item(nodes, prim_geom, prim_type, 0, 0)
             else:
                 ray[j] = -1
