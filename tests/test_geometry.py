@@ -405,7 +405,7 @@ def _check_bvh(bmin, bmax, order, nb, noff, ncnt):
         assert a == covered, "leaf ranges overlap or leave a gap"
         covered = b
     assert covered == n, "every primitive appears in exactly one leaf"
-    assert max_depth < bvh_mod.TRAVERSAL_STACK
+    assert max_depth <= bvh_mod.MAX_DEPTH      # the bound the traversal stack is sized for
     return max_depth
 
 

@@ -21,9 +21,8 @@ N_BINS = 16
 MAX_LEAF = 8
 TRAVERSAL_COST = 1.0     # relative to one primitive test
 #: Deeper nodes become leaves whatever their size, so that the traversal
-#: stack (TRAVERSAL_STACK entries) can never overflow.
+#: stack (WIDE_STACK entries) can never overflow.
 MAX_DEPTH = 60
-TRAVERSAL_STACK = 64
 
 
 @kernel
@@ -208,6 +207,9 @@ def build_bvh(bmin: np.ndarray, bmax: np.ndarray):
 WIDTH = 8
 #: float32 entries of one wide node (256 bytes, four cache lines)
 RECORD = 64
+#: offsets in a wide node of the eight child references and counts (int32)
+CHILD_REF = 48
+CHILD_COUNT = 56
 #: pending-child stack of the wide traversal: at most WIDTH - 1 entries per
 #: level of a hierarchy of depth <= MAX_DEPTH (+ 1 for the widest push)
 WIDE_STACK = (WIDTH - 1) * (MAX_DEPTH + 1) + WIDTH
@@ -288,19 +290,19 @@ def _collapse(lo32, hi32, noff, ncnt, out):
                     out[base + 8 * a + slot] = lo32[c, a]
                     out[base + 8 * (a + 3) + slot] = hi32[c, a]
                 if ncnt[c] > 0:
-                    out_i[base + 48 + slot] = noff[c]
-                    out_i[base + 56 + slot] = ncnt[c]
+                    out_i[base + CHILD_REF + slot] = noff[c]
+                    out_i[base + CHILD_COUNT + slot] = ncnt[c]
                 else:
                     src_of[n_wide] = c
-                    out_i[base + 48 + slot] = n_wide
-                    out_i[base + 56 + slot] = 0
+                    out_i[base + CHILD_REF + slot] = n_wide
+                    out_i[base + CHILD_COUNT + slot] = 0
                     n_wide += 1
             else:
                 for a in range(3):
                     out[base + 8 * a + slot] = np.inf
                     out[base + 8 * (a + 3) + slot] = -np.inf
-                out_i[base + 48 + slot] = 0
-                out_i[base + 56 + slot] = 0
+                out_i[base + CHILD_REF + slot] = 0
+                out_i[base + CHILD_COUNT + slot] = 0
     return n_wide
 
 

@@ -5,13 +5,15 @@ import numpy as np
 from numba import prange
 
 from .._jit import hot, inline, kernel
-from .bvh import RECORD, WIDE_STACK
+from .bvh import CHILD_COUNT, CHILD_REF, RECORD, WIDE_STACK
 from .intersect import intersect_prim
 from .intrinsics import box8_entry, lowest_bit, popcount, prefetch
 
 INF = math.inf
 #: the traversal stack's first _S entries hold the entry distances of a node's children
 _S = 8
+#: float64 entries of one traversal stack (see new_stack)
+STACK_LEN = _S + 3 * WIDE_STACK
 
 
 @hot
@@ -74,15 +76,15 @@ def closest_hit(nodes, nodes_i, prim_type, prim_geom, stack, ox, oy, oz, dx, dy,
             if mask != 0:
                 c = lowest_bit(mask)
                 if popcount(mask) == 1:
-                    ref = nodes_i[base + 48 + c]
-                    cnt = nodes_i[base + 56 + c]
+                    ref = nodes_i[base + CHILD_REF + c]
+                    cnt = nodes_i[base + CHILD_COUNT + c]
                     continue
                 s0 = sp
                 while mask != 0:
                     c = lowest_bit(mask)
                     mask &= mask - 1
-                    sp = _push_sorted(stack, 0, sp, s0, stack[c], nodes_i[base + 48 + c],
-                                      nodes_i[base + 56 + c])
+                    sp = _push_sorted(stack, 0, sp, s0, stack[c], nodes_i[base + CHILD_REF + c],
+                                      nodes_i[base + CHILD_COUNT + c])
                 sp -= 1
                 ref = int(stack[_S + 3 * sp + 1])
                 cnt = int(stack[_S + 3 * sp + 2])
@@ -133,13 +135,13 @@ def occluded(nodes, nodes_i, prim_type, prim_geom, stack, ox, oy, oz, dx, dy, dz
             if mask != 0:
                 c = lowest_bit(mask)
                 mask &= mask - 1
-                ref = nodes_i[base + 48 + c]
-                cnt = nodes_i[base + 56 + c]
+                ref = nodes_i[base + CHILD_REF + c]
+                cnt = nodes_i[base + CHILD_COUNT + c]
                 while mask != 0:
                     c = lowest_bit(mask)
                     mask &= mask - 1
-                    stack[_S + 3 * sp + 1] = nodes_i[base + 48 + c]
-                    stack[_S + 3 * sp + 2] = nodes_i[base + 56 + c]
+                    stack[_S + 3 * sp + 1] = nodes_i[base + CHILD_REF + c]
+                    stack[_S + 3 * sp + 2] = nodes_i[base + CHILD_COUNT + c]
                     sp += 1
                 continue
         else:
@@ -162,7 +164,7 @@ def new_stack():
     """Scratch traversal stack (allocate once per path or per batch of rays):
     eight entry distances of the node in hand, then WIDE_STACK pending
     children of three float64 each (entry distance, reference, count)."""
-    return np.empty(_S + 3 * WIDE_STACK)
+    return np.empty(STACK_LEN)
 
 
 BATCH = 4096
@@ -263,7 +265,7 @@ def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo,
     bu = np.empty(K)
     bv = np.empty(K)
     best = np.empty(K, np.int64)
-    stride = _S + 3 * WIDE_STACK
+    stride = STACK_LEN
     stack = np.empty(K * stride)
     sp = np.zeros(K, np.int64)
     nxt = lo
@@ -297,15 +299,15 @@ def _stream_block(nodes, nodes_i, prim_type, prim_geom, origins, directions, lo,
                 if mask != 0:
                     c = lowest_bit(mask)
                     if popcount(mask) == 1:
-                        ref = nodes_i[base + 48 + c]
-                        cnt = nodes_i[base + 56 + c]
+                        ref = nodes_i[base + CHILD_REF + c]
+                        cnt = nodes_i[base + CHILD_COUNT + c]
                     else:
                         s0 = s
                         while mask != 0:
                             c = lowest_bit(mask)
                             mask &= mask - 1
                             s = _push_sorted(stack, so, s, s0, stack[so + c],
-                                             nodes_i[base + 48 + c], nodes_i[base + 56 + c])
+                                             nodes_i[base + CHILD_REF + c], nodes_i[base + CHILD_COUNT + c])
                         s -= 1
                         ref = int(stack[so + _S + 3 * s + 1])
                         cnt = int(stack[so + _S + 3 * s + 2])
