@@ -55,7 +55,7 @@ def _receiver_camera(center, normal):
 
 def _scene(camera, objects, lights=(), spp=1024, **render):
     doc = {"version": 1, "camera": camera, "film": {"width": FILM, "height": FILM},
-           "materials": {"receiver": {"type": "diffuse", "albedo": [RHO] * 3}},
+           "materials": {"receiver": {"type": "lambertian", "albedo": [RHO] * 3}},
            "objects": list(objects), "render": {"spp": spp, "seed": 1, **render}}
     if lights:
         doc["lights"] = list(lights)
@@ -177,7 +177,7 @@ def enclosure_case(albedo=0.8, emission=0.5, max_bounces=None, spp=2048) -> Case
     scene = _scene({"projection": "perspective", "position": [0.0, 0.0, 0.0],
                     "look_at": [0.0, 0.0, -1.0], "fov_y": 60.0},
                    [{"shape": "sphere", "center": [0.0, 0.0, 0.0], "radius": 1.0,
-                     "material": "receiver", "emission": [emission] * 3, "two_sided": True}],
+                     "material": "receiver", "emission": [emission] * 3, "emits_both_sides": True}],
                    spp=spp, max_bounces=max_bounces)
     scene["materials"]["receiver"]["albedo"] = [albedo] * 3
     return Case(f"enclosure albedo={albedo} max_bounces={max_bounces}", L,

@@ -21,7 +21,7 @@ TINY = {
     "version": 1,
     "camera": {"position": [0, 1, 3], "look_at": [0, 0.5, 0], "fov_y": 45},
     "film": {"width": 8, "height": 6},
-    "materials": {"m": {"type": "diffuse", "albedo": [0.6, 0.5, 0.4]}},
+    "materials": {"m": {"type": "lambertian", "albedo": [0.6, 0.5, 0.4]}},
     "objects": [
         {"shape": "rectangle", "origin": [-2, 0, -2], "edge1": [0, 0, 4], "edge2": [4, 0, 0],
          "material": "m"},

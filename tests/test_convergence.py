@@ -24,8 +24,8 @@ SCENE = {
     "version": 1,
     "camera": {"position": [0, 0, 1.5], "look_at": [0, 0, 0], "fov_y": 40},
     "film": {"width": 24, "height": 18},
-    "materials": {"floor": {"type": "diffuse", "albedo": [0.7, 0.6, 0.5]},
-                  "wall": {"type": "diffuse", "albedo": [0.9, 0.9, 0.9]}},
+    "materials": {"floor": {"type": "lambertian", "albedo": [0.7, 0.6, 0.5]},
+                  "wall": {"type": "lambertian", "albedo": [0.9, 0.9, 0.9]}},
     "objects": [
         {"shape": "rectangle", "origin": [-2, -2, 0], "edge1": [4, 0, 0], "edge2": [0, 4, 0], "material": "floor"},
         {"shape": "rectangle", "origin": [-0.45, -2, 0], "edge1": [0, 4, 0], "edge2": [0, 0, 2], "material": "wall"},

@@ -110,9 +110,9 @@ def _box_scene(**render):
         "camera": {"position": [0, 1, 2.6], "look_at": [0, 1, 0], "fov_y": 45},
         "film": {"width": 16, "height": 12},
         "materials": {
-            "white": {"type": "diffuse", "albedo": [0.75, 0.75, 0.72]},
-            "red": {"type": "diffuse", "albedo": [0.7, 0.15, 0.1]},
-            "green": {"type": "diffuse", "albedo": [0.15, 0.6, 0.2]},
+            "white": {"type": "lambertian", "albedo": [0.75, 0.75, 0.72]},
+            "red": {"type": "lambertian", "albedo": [0.7, 0.15, 0.1]},
+            "green": {"type": "lambertian", "albedo": [0.15, 0.6, 0.2]},
         },
         "objects": [
             {"shape": "rectangle", "origin": [-1, 0, -1], "edge1": [0, 0, 2], "edge2": [2, 0, 0],

@@ -101,7 +101,7 @@ def _plane_scene(width=64, height=48):
     return refrender.load_scene({
         "version": 1, "camera": {"position": [0, 0, 1.5], "look_at": [0, 0, 0], "fov_y": 40},
         "film": {"width": width, "height": height},
-        "materials": {"m": {"type": "diffuse", "albedo": [0.7, 0.5, 0.3]}},
+        "materials": {"m": {"type": "lambertian", "albedo": [0.7, 0.5, 0.3]}},
         "objects": [{"shape": "rectangle", "origin": [-2, -2, 0], "edge1": [4, 0, 0], "edge2": [0, 4, 0],
                      "material": "m"},
                     {"shape": "rectangle", "origin": [-1, -1, 2], "edge1": [0, 2, 0], "edge2": [2, 0, 0],

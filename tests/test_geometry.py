@@ -632,9 +632,9 @@ def _enclosure(scale, rho, le):
         "version": 1,
         "camera": {"position": c, "look_at": [c[0], c[1], c[2] - scale], "fov_y": 60},
         "film": {"width": 8, "height": 8},
-        "materials": {"wall": {"type": "diffuse", "albedo": [rho] * 3}},
+        "materials": {"wall": {"type": "lambertian", "albedo": [rho] * 3}},
         "objects": [{"shape": "sphere", "center": c, "radius": scale, "material": "wall",
-                     "emission": [le] * 3, "two_sided": True}],
+                     "emission": [le] * 3, "emits_both_sides": True}],
     }
 
 
@@ -712,7 +712,7 @@ def _floor_scene(scale, kind):
         "camera": {"projection": "orthographic", "position": [cx, y0 + 2 * s, cz],
                    "look_at": [cx, y0, cz], "up": [0, 0, -1], "view_height": s},
         "film": {"width": 8, "height": 8},
-        "materials": {"floor": {"type": "diffuse", "albedo": [0.5, 0.5, 0.5]}},
+        "materials": {"floor": {"type": "lambertian", "albedo": [0.5, 0.5, 0.5]}},
         "objects": objects,
         "lights": [{"type": "point", "position": [cx, y0 + 0.5 * s, cz],
                     "intensity": [2.0 * s * s] * 3}],

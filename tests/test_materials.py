@@ -57,13 +57,13 @@ def _mr(base, metallic, rough):
 
 #: (name, kind, params, front, wo) of every non-delta BSDF configuration
 CASES = [
-    ("diffuse", B.MAT_DIFFUSE, _row({0: 0.7, 1: 0.5, 2: 0.3}), True, _wo(40)),
-    ("rough gold a=0.3 theta=30", B.MAT_ROUGH_CONDUCTOR, _cond((0.3, 0.3)), True, _wo(30)),
-    ("rough gold a=0.6 theta=75", B.MAT_ROUGH_CONDUCTOR, _cond((0.6, 0.6)), True, _wo(75)),
-    ("rough conductor aniso (0.15, 0.5)", B.MAT_ROUGH_CONDUCTOR, _cond((0.15, 0.5)), True, _wo(50, 70)),
-    ("rough dielectric 1.5 a=0.3 outside", B.MAT_ROUGH_DIELECTRIC, _diel(1.5, (0.3, 0.3)), True, _wo(35)),
-    ("rough dielectric 1.5 a=0.5 inside", B.MAT_ROUGH_DIELECTRIC, _diel(1.5, (0.5, 0.5)), False, _wo(30)),
-    ("rough dielectric 1.33 aniso inside grazing", B.MAT_ROUGH_DIELECTRIC, _diel(1.33, (0.2, 0.6)), False,
+    ("lambertian", B.MAT_LAMBERTIAN, _row({0: 0.7, 1: 0.5, 2: 0.3}), True, _wo(40)),
+    ("rough gold a=0.3 theta=30", B.MAT_ROUGH_METAL, _cond((0.3, 0.3)), True, _wo(30)),
+    ("rough gold a=0.6 theta=75", B.MAT_ROUGH_METAL, _cond((0.6, 0.6)), True, _wo(75)),
+    ("rough conductor aniso (0.15, 0.5)", B.MAT_ROUGH_METAL, _cond((0.15, 0.5)), True, _wo(50, 70)),
+    ("rough dielectric 1.5 a=0.3 outside", B.MAT_ROUGH_GLASS, _diel(1.5, (0.3, 0.3)), True, _wo(35)),
+    ("rough dielectric 1.5 a=0.5 inside", B.MAT_ROUGH_GLASS, _diel(1.5, (0.5, 0.5)), False, _wo(30)),
+    ("rough dielectric 1.33 aniso inside grazing", B.MAT_ROUGH_GLASS, _diel(1.33, (0.2, 0.6)), False,
      _wo(70, 10)),
     ("metallic_roughness dielectric r=0.5", B.MAT_METALLIC_ROUGHNESS, _mr((0.8, 0.6, 0.4), 0.0, 0.5), True,
      _wo(45)),
@@ -184,7 +184,7 @@ def test_reciprocity(case):
     fba = np.array([batch.eval_many(kind, p, front, Z, b[j], a[j:j + 1])[0][0] for j in range(300)])
     assert fab.max() > 0
     np.testing.assert_allclose(fab, fba, rtol=1e-10, atol=1e-300)
-    if kind == B.MAT_ROUGH_DIELECTRIC:
+    if kind == B.MAT_ROUGH_GLASS:
         eta_o_side = p[0] if front else 1.0 / p[0]      # n_other / n_wo
         below = b * [1, 1, -1]
         # wo = a on this side, wi = below on the other; reversed: wo = -below seen from the
@@ -209,7 +209,7 @@ def test_directional_albedo_at_most_one(case):
         w = np.zeros_like(f)
         ok = pdf > 0
         w[ok] = f[ok] * np.abs(wi[ok, 2:3]) / pdf[ok, None]
-        if kind == B.MAT_ROUGH_DIELECTRIC:
+        if kind == B.MAT_ROUGH_GLASS:
             eta = p[0] if front else 1.0 / p[0]
             w[wi[:, 2] < 0] *= eta * eta
         est = w.mean(axis=0)
@@ -221,7 +221,7 @@ def test_delta_lobes_have_zero_eval_and_pdf():
     wo = _wo(30)
     u = np.random.default_rng(0).random((1000, 3))
     for kind, p in ((B.MAT_MIRROR, _row({0: 0.9, 1: 0.8, 2: 0.7})),
-                    (B.MAT_CONDUCTOR, _cond((0, 0))), (B.MAT_DIELECTRIC, _row({0: 1.5}))):
+                    (B.MAT_SMOOTH_METAL, _cond((0, 0))), (B.MAT_SMOOTH_GLASS, _row({0: 1.5}))):
         wi, f, pdf, delta = batch.sample_many(kind, p, True, Z, wo, u)
         assert delta.all() and (pdf > 0).all()
         f2, p2 = batch.eval_many(kind, p, True, Z, wo, wi)
@@ -236,7 +236,7 @@ def test_smooth_dielectric_sampling_weights():
     p = _row({0: 1.5})
     wo = _wo(45, 0)
     u = np.random.default_rng(1).random((200_000, 3))
-    wi, f, pdf, _ = batch.sample_many(B.MAT_DIELECTRIC, p, True, Z, wo, u)
+    wi, f, pdf, _ = batch.sample_many(B.MAT_SMOOTH_GLASS, p, True, Z, wo, u)
     refl = wi[:, 2] > 0
     frac = refl.mean()
     assert abs(frac - 0.0502399) <= 4 * math.sqrt(0.05 * 0.95 / len(u))
@@ -246,7 +246,7 @@ def test_smooth_dielectric_sampling_weights():
     sin_t = np.hypot(wi[~refl, 0], wi[~refl, 1])
     np.testing.assert_allclose(sin_t, math.sin(math.radians(45)) / 1.5, rtol=1e-12)
     for theta, tir in ((41.7, False), (41.9, True)):
-        wi, *_ = batch.sample_many(B.MAT_DIELECTRIC, p, False, Z, _wo(theta, 0), u[:2000])
+        wi, *_ = batch.sample_many(B.MAT_SMOOTH_GLASS, p, False, Z, _wo(theta, 0), u[:2000])
         assert (wi[:, 2] > 0).all() == tir
 
 
@@ -392,8 +392,8 @@ def _assert_close(mean, se, expected, what):
 
 @pytest.mark.parametrize("strategy", ["mis", "nee", "bsdf"])
 @pytest.mark.parametrize("material", [
-    {"type": "dielectric", "ior": 1.5}, {"type": "dielectric", "ior": 2.4, "outside_ior": 1.1},
-    {"type": "diffuse", "albedo": [1, 1, 1]}], ids=["glass 1.5", "dense glass in a medium", "white diffuse"])
+    {"type": "glass", "ior": 1.5}, {"type": "glass", "ior": 2.4, "exterior_ior": 1.1},
+    {"type": "lambertian", "albedo": [1, 1, 1]}], ids=["glass 1.5", "dense glass in a medium", "white diffuse"])
 def test_objects_invisible_in_the_furnace(material, strategy):
     """A smooth dielectric sphere (any index) and a white diffuse sphere in a uniform
     environment of radiance 1: every pixel equals 1 (validation-references 3a)."""
@@ -418,8 +418,8 @@ def test_strong_furnace_rough_conductor(alpha, theta):
     """Unit-Fresnel rough conductor (height-correlated G2) in a furnace of radiance 1,
     seen at theta_o by an orthographic camera: the pixel is the single-scattering
     directional albedo E(o) of validation-references 3b."""
-    doc = _doc(_ortho_at(theta), {"m": {"type": "rough_conductor", "reflectance": [1, 1, 1],
-                                        "alpha": alpha}}, [_plane("m")], spp=4096)
+    doc = _doc(_ortho_at(theta), {"m": {"type": "metal", "f0": [1, 1, 1],
+                                        "ggx_alpha": alpha}}, [_plane("m")], spp=4096)
     mean, se = _render(doc)
     assert se[0] <= 0.01 * E_HC[alpha, theta]
     _assert_close(mean, se, E_HC[alpha, theta], f"alpha={alpha} theta={theta}")
@@ -442,7 +442,7 @@ def test_rendered_fresnel_of_glass(theta, expected):
     """A glass surface (n = 1.5) over a black absorber, furnace of radiance 1 above:
     the pixel is R(theta) at 0 deg, 45 deg and Brewster's angle (Born & Wolf; Hecht;
     validation-references 4a)."""
-    doc = _doc(_ortho_at(theta), {"g": {"type": "dielectric", "ior": 1.5}},
+    doc = _doc(_ortho_at(theta), {"g": {"type": "glass", "ior": 1.5}},
                [_plane("g"), _plane(None, z=-0.01)], spp=16384)
     mean, se = _render(doc)
     assert se[0] < 0.03 * expected
@@ -457,7 +457,7 @@ def test_rendered_slab_transmittance():
            "view_height": 0.01}
     emitter = _plane(None, z=-0.5)
     emitter["emission"] = [1.0, 1.0, 1.0]
-    doc = _doc(cam, {"g": {"type": "dielectric", "ior": 1.5}},
+    doc = _doc(cam, {"g": {"type": "glass", "ior": 1.5}},
                [_plane("g", z=0.0), _plane("g", z=-0.1, up=False), emitter], env=None, spp=16384)
     mean, se = _render(doc)
     assert se[0] < 0.002
@@ -468,7 +468,7 @@ def test_rendered_slab_transmittance():
 def test_rendered_metal_presets_show_r0(name):
     """A smooth preset conductor seen at normal incidence in a furnace of radiance 1
     shows R0 per channel (validation-references 4c)."""
-    doc = _doc(_ortho_at(0.0), {"m": {"type": "conductor", "metal": name}}, [_plane("m")], spp=4)
+    doc = _doc(_ortho_at(0.0), {"m": {"type": "metal", "preset": name}}, [_plane("m")], spp=4)
     mean, se = _render(doc)
     np.testing.assert_allclose(mean, R0_TABLE[name], atol=6e-7)
 
@@ -492,7 +492,7 @@ def test_rough_dielectric_strategies_agree():
             "emission": [4.0, 4.0, 4.0]}
     sheet = {"shape": "rectangle", "origin": [-1, -1, 0], "edge1": [2, 0, 0], "edge2": [0, 2, 0],
              "material": "g"}
-    doc = _doc(cam, {"g": {"type": "rough_dielectric", "ior": 1.5, "alpha": 0.3}}, [sheet, disk],
+    doc = _doc(cam, {"g": {"type": "glass", "ior": 1.5, "ggx_alpha": 0.3}}, [sheet, disk],
                env=None, spp=4096, max_bounces=1)
     vals = [_render(doc, strategy=s) for s in ("mis", "nee", "bsdf")]
     for a in range(3):

@@ -332,7 +332,7 @@ def _env_scene(tmp_path, img, look, spp=4, rotate=0.0, objects=None, camera=None
     cam = camera or {"position": [0, 0, 0], "look_at": look, "fov_y": 1.0,
                      "up": [0, 1, 0] if abs(look[1]) < 0.9 else [1, 0, 0]}
     doc = {"version": 1, "camera": cam, "film": {"width": 2, "height": 2},
-           "materials": {"m": {"type": "diffuse", "albedo": [0.5, 0.5, 0.5]}},
+           "materials": {"m": {"type": "lambertian", "albedo": [0.5, 0.5, 0.5]}},
            "objects": objects if objects is not None else
            [{"shape": "sphere", "center": [0, -100, 0], "radius": 1.0, "material": "m"}],
            "lights": [light], "render": {"spp": spp, "seed": 3}}

@@ -49,7 +49,7 @@ def world_positions(transform) -> np.ndarray:
 def test_look_at_along_minus_z_is_the_identity_frame():
     """Camera at +5 z looking at the origin with up +y: camera axes equal world axes
     (camera looks down its -Z, +Y up, +X right: the glTF 2.0 camera convention)."""
-    m = load_scene(scene_with()).camera.to_world
+    m = load_scene(scene_with()).camera.camera_to_world
     expected = np.eye(4)
     expected[:3, 3] = [0, 0, 5]
     np.testing.assert_array_equal(m, expected)
@@ -62,7 +62,7 @@ def test_look_at_general_frame():
     position, target, up = np.array([1.0, 2, 3]), np.array([-2.0, 0.5, 1]), np.array([0.3, 1, 0.2])
     camera = load_scene(scene_with(camera={"position": position.tolist(), "look_at": target.tolist(),
                                            "up": up.tolist(), "fov_y": 55})).camera
-    m = camera.to_world
+    m = camera.camera_to_world
     x, y, z, p = m[:3, 0], m[:3, 1], m[:3, 2], m[:3, 3]
     forward = (target - position) / np.linalg.norm(target - position)
     np.testing.assert_allclose(z, -forward, atol=1e-15)
@@ -75,19 +75,19 @@ def test_look_at_general_frame():
     assert camera.projection == "perspective" and camera.fov_y == 55.0
 
 
-def test_given_to_world_is_kept():
+def test_given_camera_to_world_is_kept():
     """A camera turned 90 degrees about +y (looking down world -x) at (4, 1, 0)."""
     rows = [[0, 0, 1, 4], [0, 1, 0, 1], [-1, 0, 0, 0], [0, 0, 0, 1]]
-    m = load_scene(scene_with(camera={"to_world": rows})).camera.to_world
+    m = load_scene(scene_with(camera={"camera_to_world": rows})).camera.camera_to_world
     np.testing.assert_array_equal(m, np.array(rows, dtype=np.float64))
     np.testing.assert_array_equal(-m[:3, 2], [-1, 0, 0])  # view direction
 
 
-def test_nearly_orthonormal_to_world_is_re_orthonormalised():
+def test_nearly_orthonormal_camera_to_world_is_re_orthonormalised():
     r = rotation_matrix(np.array([0.0, 0.0, 1.0]), 30.0) * (1 + 2e-5)
     rows = np.eye(4)
     rows[:3, :3] = r
-    m = load_scene(scene_with(camera={"to_world": rows.tolist()})).camera.to_world
+    m = load_scene(scene_with(camera={"camera_to_world": rows.tolist()})).camera.camera_to_world
     np.testing.assert_allclose(m[:3, :3].T @ m[:3, :3], np.eye(3), atol=1e-15)
     np.testing.assert_allclose(m[:3, :3], r, atol=1e-4)
 
@@ -96,8 +96,10 @@ def test_nearly_orthonormal_to_world_is_re_orthonormalised():
     ({}, dict(projection="perspective", fov_y=40.0)),
     ({"projection": "orthographic"}, dict(projection="orthographic", view_height=1.0)),
     ({"projection": "orthographic", "view_height": 2.5}, dict(view_height=2.5)),
-    ({"projection": "thin_lens", "aperture_radius": 0.05, "focus_distance": 4, "fov_y": 30},
-     dict(projection="thin_lens", aperture_radius=0.05, focus_distance=4.0, fov_y=30.0)),
+    ({"lens": {"f_number": 2.0, "focus_distance": 4}, "focal_length": 50},
+     dict(projection="perspective", f_number=2.0, focus_distance=4.0, focal_length=50.0, sensor_height=24.0,
+          lens_radius=0.5 * 0.050 / 2.0)),
+    ({"focal_length": 35, "sensor_height": 15.6}, dict(f_number=None, lens_radius=0.0)),
 ])
 def test_camera_projections_and_defaults(camera, expected):
     """Defaults from the contract: perspective, fov_y 40 degrees, view_height 1."""
@@ -155,11 +157,11 @@ def test_mirroring_transform_keeps_the_index_order():
 def test_all_core_shapes_and_lights():
     doc = scene_with(
         [{"shape": "sphere", "center": [1, 2, 3], "radius": 0.5, "material": "m", "emission": [1, 2, 3],
-          "two_sided": True},
+          "emits_both_sides": True},
          {"shape": "rectangle", "origin": [0, 0, 0], "edge1": [2, 0, 0], "edge2": [0, 0, -3]},
          {"shape": "disk", "center": [0, 1, 0], "normal": [0, -4, 0], "radius": 2},
          triangles()],
-        materials={"m": {"type": "diffuse", "albedo": [0.25, 0.5, 1]}},
+        materials={"m": {"type": "lambertian", "albedo": [0.25, 0.5, 1]}},
         lights=[{"type": "point", "position": [0, 5, 0], "intensity": [10, 10, 10]},
                 {"type": "directional", "direction": [0, -3, 4], "irradiance": [1, 1, 1]},
                 {"type": "environment", "radiance": [0.1, 0.2, 0.3]}])
@@ -167,16 +169,16 @@ def test_all_core_shapes_and_lights():
     sphere, rect, disk, tri = (o.shape for o in scene.objects)
     assert isinstance(sphere, Sphere) and sphere.radius == 0.5
     np.testing.assert_array_equal(sphere.center, [1, 2, 3])
-    assert scene.objects[0].material == "m" and scene.objects[0].two_sided
+    assert scene.objects[0].material == "m" and scene.objects[0].emits_both_sides
     np.testing.assert_array_equal(scene.objects[0].emission, [1, 2, 3])
-    assert scene.objects[1].material is None and not scene.objects[1].two_sided
+    assert scene.objects[1].material is None and not scene.objects[1].emits_both_sides
     np.testing.assert_array_equal(scene.objects[1].emission, [0, 0, 0])
     assert isinstance(rect, Rectangle)
     np.testing.assert_array_equal(np.cross(rect.edge1, rect.edge2), [0, 6, 0])  # front normal +y
     np.testing.assert_array_equal(disk.normal, [0, -1, 0])
     assert isinstance(tri, TriangleMesh) and tri.source == "triangles"
     assert tri.positions.dtype == np.float64 and tri.indices.dtype == np.int64
-    assert scene.materials["m"].type == "diffuse"
+    assert scene.materials["m"].type == "lambertian"
     np.testing.assert_array_equal(scene.materials["m"].params["albedo"], [0.25, 0.5, 1])
     point, directional, environment = scene.lights
     assert isinstance(point, PointLight) and isinstance(environment, EnvironmentLight)
@@ -307,7 +309,7 @@ def test_dict_form_equals_file_form(tmp_path):
     tetra().export(str(tmp_path / "t.obj"))
     doc = scene_with([{"shape": "mesh", "path": "t.obj", "transform": {"scale": 2}, "material": "m"},
                       {"shape": "disk", "center": [0, 0, 0], "normal": [0, 0, 1], "radius": 1}],
-                     materials={"m": {"type": "diffuse", "albedo": [0.5, 0.5, 0.5]}},
+                     materials={"m": {"type": "lambertian", "albedo": [0.5, 0.5, 0.5]}},
                      lights=[{"type": "point", "position": [1, 1, 1], "intensity": [1, 1, 1]}],
                      render={"spp": 16, "seed": 3})
     (tmp_path / "s.json").write_text(json.dumps(doc))
@@ -316,7 +318,7 @@ def test_dict_form_equals_file_form(tmp_path):
     assert from_file.sha256 == from_dict.sha256
     assert from_file.document == from_dict.document == doc
     assert from_file.render == from_dict.render and from_file.film == from_dict.film
-    np.testing.assert_array_equal(from_file.camera.to_world, from_dict.camera.to_world)
+    np.testing.assert_array_equal(from_file.camera.camera_to_world, from_dict.camera.camera_to_world)
     for a, b in zip(from_file.objects, from_dict.objects):
         assert a.material == b.material
         for field in ("positions", "indices", "center", "normal"):

@@ -105,7 +105,7 @@ def test_png_texture_is_decoded_from_srgb(tmp_path):
     import imageio.v3 as iio
     img = np.array([[[188, 128, 0], [255, 188, 128]]], dtype=np.uint8)
     iio.imwrite(tmp_path / "t.png", img)
-    doc = _scene({"m": {"type": "diffuse", "albedo": {"texture": "t.png"}}}, [SQUARE])
+    doc = _scene({"m": {"type": "lambertian", "albedo": {"texture": "t.png"}}}, [SQUARE])
     tex = _load(doc, tmp_path).materials["m"].params["albedo_texture"]
     np.testing.assert_allclose(tex.data[0, 0], [0.502886, 0.215861, 0.0], atol=1e-6)
     np.testing.assert_allclose(tex.data[0, 1], [1.0, 0.502886, 0.215861], atol=1e-6)
@@ -115,9 +115,9 @@ def test_exr_texture_is_linear(tmp_path):
     from refrender.io import write_exr
     img = RNG.random((3, 4, 3)).astype(np.float32)
     write_exr(tmp_path / "r.exr", img)
-    doc = _scene({"m": {"type": "rough_conductor", "reflectance": [1, 1, 1],
-                        "alpha": {"texture": "r.exr", "channel": 2}}}, [SQUARE])
-    tex = _load(doc, tmp_path).materials["m"].params["alpha_texture"]
+    doc = _scene({"m": {"type": "metal", "f0": [1, 1, 1],
+                        "ggx_alpha": {"texture": "r.exr", "channel": 2}}}, [SQUARE])
+    tex = _load(doc, tmp_path).materials["m"].params["ggx_alpha_texture"]
     np.testing.assert_array_equal(tex.data, img)
 
 
@@ -133,7 +133,7 @@ def test_rendered_checker_albedo(strategy):
     """A flat diffuse square under a uniform environment of radiance 1 shows its albedo
     (validation-references 3a); with a 2 x 2 checker every pixel shows its square's colour."""
     cols = [[0.2, 0.4, 0.6], [0.9, 0.5, 0.1]]
-    doc = _scene({"m": {"type": "diffuse", "albedo": {"checker": cols, "scale": [2, 2]}}}, [SQUARE])
+    doc = _scene({"m": {"type": "lambertian", "albedo": {"checker": cols, "scale": [2, 2]}}}, [SQUARE])
     mean, se = _render(doc, strategy=strategy)
     for py in range(4):
         for px in range(4):
@@ -153,7 +153,7 @@ def test_rendered_mesh_uvs_and_image_texture(tmp_path):
         "v -1 -1 0\nv 1 -1 0\nv 1 1 0\nv -1 1 0\n"
         "vt 0.5 0\nvt 1 0\nvt 1 1\nvt 0.5 1\n"
         "f 1/1 2/2 3/3\nf 1/1 3/3 4/4\n")
-    doc = _scene({"m": {"type": "diffuse", "albedo": {"texture": "t.png", "filter": "nearest"}}},
+    doc = _scene({"m": {"type": "lambertian", "albedo": {"texture": "t.png", "filter": "nearest"}}},
                  [{"shape": "mesh", "path": "q.obj", "material": "m"}])
     scene = _load(doc, tmp_path)
     assert scene.objects[0].shape.uvs is not None
@@ -166,8 +166,8 @@ def test_rendered_mesh_uvs_and_image_texture(tmp_path):
 def test_rendered_roughness_texture():
     """A checker of GGX alpha 0.1 / 1.0 on a unit-Fresnel rough conductor, seen at normal
     incidence in the furnace: each square shows E(o) of its alpha (validation-references 3b)."""
-    doc = _scene({"m": {"type": "rough_conductor", "reflectance": [1, 1, 1],
-                        "alpha": {"checker": [[0.1] * 3, [1.0] * 3], "scale": [2, 2]}}}, [SQUARE],
+    doc = _scene({"m": {"type": "metal", "f0": [1, 1, 1],
+                        "ggx_alpha": {"checker": [[0.1] * 3, [1.0] * 3], "scale": [2, 2]}}}, [SQUARE],
                  spp=4096, view=0.02)
     doc["objects"][0] = {**SQUARE, "origin": [-0.01, -0.01, 0], "edge1": [0.02, 0, 0], "edge2": [0, 0.02, 0]}
     mean, se = _render(doc)
@@ -179,11 +179,11 @@ def test_rendered_roughness_texture():
 
 
 @pytest.mark.parametrize("material,message", [
-    ({"type": "diffuse", "albedo": {"texture": "missing.png"}}, "materials.m.albedo.texture: file not found"),
-    ({"type": "conductor", "metal": "gold", "eta": [1, 1, 1], "k": [1, 1, 1]}, "materials.m: give exactly one"),
-    ({"type": "conductor", "eta": [1, 1, 1]}, "materials.m.k: required"),
-    ({"type": "conductor", "metal": "unobtainium"}, "materials.m"),
-    ({"type": "rough_dielectric", "ior": 1.5}, "materials.m"),
+    ({"type": "lambertian", "albedo": {"texture": "missing.png"}}, "materials.m.albedo.texture: file not found"),
+    ({"type": "metal", "preset": "gold", "n": [1, 1, 1], "k": [1, 1, 1]}, "materials.m: give exactly one"),
+    ({"type": "metal", "n": [1, 1, 1]}, "materials.m.k: required"),
+    ({"type": "metal", "preset": "unobtainium"}, "materials.m"),
+    ({"type": "glass", "ggx_alpha": 1.5}, "materials.m.ggx_alpha: must be <= 1"),
     ({"type": "metallic_roughness", "roughness": 1.5}, "materials.m"),
 ])
 def test_material_errors_name_the_field(material, message):
@@ -197,15 +197,15 @@ def test_out_of_range_reflectance_texture_is_an_error(tmp_path):
     from refrender.io import write_exr
     write_exr(tmp_path / "hot.exr", np.full((2, 2, 3), 1.5, dtype=np.float32))
     with pytest.raises(SceneError, match=r"materials\.m\.albedo\.texture: a reflectance texture must lie in"):
-        _load(_scene({"m": {"type": "diffuse", "albedo": {"texture": "hot.exr"}}}, [SQUARE]), tmp_path)
+        _load(_scene({"m": {"type": "lambertian", "albedo": {"texture": "hot.exr"}}}, [SQUARE]), tmp_path)
 
 
 def test_channel_out_of_range_is_an_error(tmp_path):
     import imageio.v3 as iio
     iio.imwrite(tmp_path / "g.png", np.zeros((2, 2), dtype=np.uint8))
-    with pytest.raises(SceneError, match=r"materials\.m\.alpha\.channel: 1 is out of range"):
-        _load(_scene({"m": {"type": "rough_conductor", "metal": "gold",
-                            "alpha": {"texture": "g.png", "channel": 1}}}, [SQUARE]), tmp_path)
+    with pytest.raises(SceneError, match=r"materials\.m\.ggx_alpha\.channel: 1 is out of range"):
+        _load(_scene({"m": {"type": "metal", "preset": "gold",
+                            "ggx_alpha": {"texture": "g.png", "channel": 1}}}, [SQUARE]), tmp_path)
 
 
 def test_triangles_uvs_render_and_count_check():
@@ -214,7 +214,7 @@ def test_triangles_uvs_render_and_count_check():
     tri = {"shape": "triangles", "positions": [[-1, -1, 0], [1, -1, 0], [1, 1, 0], [-1, 1, 0]],
            "indices": [[0, 1, 2], [0, 2, 3]], "uvs": [[0, 0], [0.49, 0], [0.49, 0.49], [0, 0.49]],
            "material": "m"}
-    doc = _scene({"m": {"type": "diffuse", "albedo": {"checker": cols, "scale": [1, 1]}}}, [tri])
+    doc = _scene({"m": {"type": "lambertian", "albedo": {"checker": cols, "scale": [1, 1]}}}, [tri])
     mean, _ = _render(doc, strategy="bsdf")
     np.testing.assert_allclose(mean, 0.2, atol=1e-7)          # every uv in square (0, 0)
     tri["uvs"] = tri["uvs"][:3]
@@ -223,7 +223,7 @@ def test_triangles_uvs_render_and_count_check():
 
 
 def test_bad_wrap_mode_names_the_field():
-    doc = _scene({"m": {"type": "diffuse", "albedo": {"checker": [[0, 0, 0], [1, 1, 1]], "wrap": "tile"}}},
+    doc = _scene({"m": {"type": "lambertian", "albedo": {"checker": [[0, 0, 0], [1, 1, 1]], "wrap": "tile"}}},
                  [SQUARE])
     with pytest.raises(SceneError, match=r"^materials\.m\.albedo"):
         _load(doc)

@@ -45,7 +45,7 @@ def builtin(name: str) -> dict:
     floor = {"shape": "rectangle", "origin": [-10.0, 0.0, 10.0], "edge1": [20.0, 0.0, 0.0],
              "edge2": [0.0, 0.0, -20.0], "material": "floor"}
     base = {"version": 1, "film": {"width": 32, "height": 32},
-            "materials": {"floor": {"type": "diffuse", "albedo": [0.6, 0.6, 0.6]}},
+            "materials": {"floor": {"type": "lambertian", "albedo": [0.6, 0.6, 0.6]}},
             "render": {"spp": 64, "seed": 5}}
     if name == "sphere":
         lamp = {"shape": "sphere", "center": [0.0, 1.6, 0.0], "radius": 1.0, "emission": [5.0, 5.0, 5.0]}

@@ -21,7 +21,7 @@ LUMINANCE = np.array([0.2126, 0.7152, 0.0722])
 
 # material type codes (row 0 of the material table is always black); the
 # table itself is built by refrender.materials.table
-from ..materials.bsdf import MAT_BLACK, MAT_DIFFUSE  # noqa: E402,F401
+from ..materials.bsdf import MAT_BLACK, MAT_LAMBERTIAN  # noqa: E402,F401
 from ..materials.table import MAT_PARAMS, material_emission, material_table  # noqa: E402
 
 # light type codes
@@ -33,9 +33,8 @@ LIGHT_ENVIRONMENT = 3
 # camera projection codes
 CAM_PERSPECTIVE = 0
 CAM_ORTHOGRAPHIC = 1
-CAM_THIN_LENS = 2
-_PROJECTIONS = {"perspective": CAM_PERSPECTIVE, "orthographic": CAM_ORTHOGRAPHIC,
-                "thin_lens": CAM_THIN_LENS}
+CAM_THIN_LENS = 2      # a perspective camera with a lens (depth of field)
+_PROJECTIONS = {"perspective": CAM_PERSPECTIVE, "orthographic": CAM_ORTHOGRAPHIC}
 
 
 class SceneArrays(NamedTuple):
@@ -49,7 +48,7 @@ class SceneArrays(NamedTuple):
     prim_area: np.ndarray      # (n,) float64, m^2
     obj_material: np.ndarray   # (k,) int32, row of the material table
     obj_emission: np.ndarray   # (k, 3) float64 radiance
-    obj_two_sided: np.ndarray  # (k,) int32 (1 = emits from both sides)
+    obj_emits_both_sides: np.ndarray  # (k,) int32 (1 = emits from both sides)
     mat_type: np.ndarray       # (q,) int32
     mat_params: np.ndarray     # (q, MAT_PARAMS) float64
     center: np.ndarray         # (3,) centre of the bounding sphere of all geometry
@@ -153,7 +152,7 @@ def compile_scene(scene: m.Scene) -> SceneArrays:
     types, geoms, areas, objs, local, uvs = [], [], [], [], [], []
     obj_material = np.zeros(len(scene.objects), dtype=np.int32)
     obj_emission = np.zeros((len(scene.objects), 3))
-    obj_two_sided = np.zeros(len(scene.objects), dtype=np.int32)
+    obj_emits_both_sides = np.zeros(len(scene.objects), dtype=np.int32)
     for i, obj in enumerate(scene.objects):
         t, g, a = _shape_records(obj.shape)
         types.append(t)
@@ -164,7 +163,7 @@ def compile_scene(scene: m.Scene) -> SceneArrays:
         uvs.append(_prim_uv(obj.shape, len(t)))
         obj_material[i] = index[obj.material] if obj.material is not None else 0
         obj_emission[i] = obj.emission + material_emission(scene.materials.get(obj.material))
-        obj_two_sided[i] = 1 if obj.two_sided else 0
+        obj_emits_both_sides[i] = 1 if obj.emits_both_sides else 0
     if types:
         types = np.concatenate(types).astype(np.int8)
         geoms = np.concatenate(geoms)
@@ -193,7 +192,7 @@ def compile_scene(scene: m.Scene) -> SceneArrays:
         prim_type=c(types[order]), prim_geom=c(geoms[order]),
         prim_object=c(objs[order]), prim_index=c(local[order]),
         prim_scale=c(scale[order]), prim_area=c(areas[order]),
-        obj_material=obj_material, obj_emission=obj_emission, obj_two_sided=obj_two_sided,
+        obj_material=obj_material, obj_emission=obj_emission, obj_emits_both_sides=obj_emits_both_sides,
         mat_type=mat_type, mat_params=mat_params, center=center, radius=radius,
         prim_uv=c(uvs[order]) if uvs[:, 0].any() else np.zeros((1, 7)),
         tex_info=tex_info, tex_data=tex_data)
@@ -215,7 +214,7 @@ def light_power(scene: m.Scene, arrays: SceneArrays):
     for k in emissive:
         obj = arrays.prim_object[k]
         y = float(LUMINANCE @ arrays.obj_emission[obj])
-        sides = 2.0 if arrays.obj_two_sided[obj] else 1.0
+        sides = 2.0 if arrays.obj_emits_both_sides[obj] else 1.0
         data = np.zeros(6)
         data[:3] = arrays.obj_emission[obj]
         rows.append((LIGHT_SURFACE, int(k), data, math.pi * arrays.prim_area[k] * y * sides))
@@ -316,16 +315,16 @@ def camera_array(scene: m.Scene) -> np.ndarray:
     """Camera as a float64 vector for the kernels.
 
     [0:12] rows 0-2 of the camera-to-world matrix, [12] projection code,
-    [13] tan(fov_y / 2), [14] view height, [15] aperture radius,
+    [13] tan(fov_y / 2), [14] view height, [15] lens (aperture) radius,
     [16] focus distance, [17] full film width, [18] full film height.
     """
     cam = scene.camera
     v = np.zeros(19)
-    v[0:12] = np.asarray(cam.to_world, dtype=np.float64)[:3, :].ravel()
-    v[12] = _PROJECTIONS[cam.projection]
+    v[0:12] = np.asarray(cam.camera_to_world, dtype=np.float64)[:3, :].ravel()
+    v[12] = CAM_THIN_LENS if cam.lens_radius > 0.0 else _PROJECTIONS[cam.projection]
     v[13] = math.tan(math.radians(cam.fov_y) / 2.0)
     v[14] = cam.view_height
-    v[15] = cam.aperture_radius
+    v[15] = cam.lens_radius
     v[16] = cam.focus_distance
     v[17] = scene.film.width
     v[18] = scene.film.height

@@ -94,11 +94,15 @@ def camera_ray(cam, px, py, u3, u4):
         dx, dy, dz = sx * t * aspect, sy * t, -1.0
         ox, oy, oz = 0.0, 0.0, 0.0
         if proj == 2.0:   # thin lens: focus plane at distance cam[16] along -Z
+            # The ray from lens point (lx, ly, 0) through the pinhole ray's
+            # point on the focus plane, (dx, dy, -1) * f; its direction is
+            # scaled by 1/f so that as the aperture shrinks (f-number to
+            # infinity) the ray becomes the pinhole ray bit for bit.
             lx, ly = sample_concentric_disk(u3, u4)
             lx *= cam[15]
             ly *= cam[15]
             f = cam[16]
-            dx, dy, dz = dx * f - lx, dy * f - ly, dz * f
+            dx, dy = dx - lx / f, dy - ly / f
             ox, oy = lx, ly
     wx = cam[0] * ox + cam[1] * oy + cam[2] * oz + cam[3]
     wy = cam[4] * ox + cam[5] * oy + cam[6] * oz + cam[7]
@@ -145,7 +149,7 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
         front = wx * mx + wy * my + wz * mz < 0.0
         lobj = S.prim_object[lp]
         if not front:
-            if S.obj_two_sided[lobj] != 1:
+            if S.obj_emits_both_sides[lobj] != 1:
                 return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
             # a sphere hides its far side from an outside point; judged from the
             # offset origin, so that a point on the sphere itself counts as being
@@ -249,7 +253,7 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
         cos_in = dx * nx + dy * ny + dz * nz
         # emission
         em = S.obj_emission[obj]
-        if (em[0] > 0.0 or em[1] > 0.0 or em[2] > 0.0) and (cos_in < 0.0 or S.obj_two_sided[obj] == 1):
+        if (em[0] > 0.0 or em[1] > 0.0 or em[2] > 0.0) and (cos_in < 0.0 or S.obj_emits_both_sides[obj] == 1):
             if prev_delta or strategy == STRATEGY_BSDF:
                 w = 1.0
             elif strategy == STRATEGY_NEE:

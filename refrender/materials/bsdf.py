@@ -21,12 +21,12 @@ columns 14 and 15 hold texture references, see :mod:`.textures`):
 =====================  ==========================================================
 type                   layout
 =====================  ==========================================================
-diffuse (1)            0-2 albedo
+lambertian (1)         0-2 albedo
 mirror (2)             0-2 reflectance
-dielectric (3)         0 eta = n_inside / n_outside (real)
-rough_dielectric (4)   0 eta; 8 alpha_x; 9 alpha_y
-conductor (5)          0-2 n; 3-5 k; 6 = 1: constant reflectance 0-2 instead of Fresnel
-rough_conductor (6)    as conductor; 8 alpha_x; 9 alpha_y
+smooth glass (3)       0 relative index ior / exterior_ior (real)
+rough glass (4)        0 relative index; 8 alpha along tangent; 9 along bitangent
+smooth metal (5)       0-2 n; 3-5 k (both / exterior_ior); 6 = 1: constant f0 in 0-2
+rough metal (6)        as smooth metal; 8 alpha along tangent; 9 along bitangent
 metallic_roughness (7) 0-2 base colour; 3 metallic; 4 roughness (alpha = roughness^2)
 =====================  ==========================================================
 """
@@ -38,12 +38,12 @@ from .fresnel import fresnel_conductor, fresnel_dielectric, schlick
 from .microfacet import ALPHA_MIN, ggx_d, ggx_g1, ggx_g2, pdf_vndf, sample_vndf
 
 MAT_BLACK = 0
-MAT_DIFFUSE = 1
+MAT_LAMBERTIAN = 1
 MAT_MIRROR = 2
-MAT_DIELECTRIC = 3
-MAT_ROUGH_DIELECTRIC = 4
-MAT_CONDUCTOR = 5
-MAT_ROUGH_CONDUCTOR = 6
+MAT_SMOOTH_GLASS = 3
+MAT_ROUGH_GLASS = 4
+MAT_SMOOTH_METAL = 5
+MAT_ROUGH_METAL = 6
 MAT_METALLIC_ROUGHNESS = 7
 
 #: dielectric F0 of the glTF 2.0 metallic-roughness model (ior 1.5)
@@ -286,13 +286,13 @@ def sample_metallic_roughness(p, ox, oy, oz, u1, u2, u3):
 @inline
 def bsdf_is_delta(kind):
     """Whether every lobe of the material is a delta (no light sampling there)."""
-    return kind == MAT_MIRROR or kind == MAT_DIELECTRIC or kind == MAT_CONDUCTOR
+    return kind == MAT_MIRROR or kind == MAT_SMOOTH_GLASS or kind == MAT_SMOOTH_METAL
 
 
 @inline
 def bsdf_transmits(kind):
     """Whether a non-delta lobe reaches directions below the surface."""
-    return kind == MAT_ROUGH_DIELECTRIC
+    return kind == MAT_ROUGH_GLASS
 
 
 @inline
@@ -300,12 +300,12 @@ def bsdf_eval(kind, p, front, nx, ny, nz, wox, woy, woz, wix, wiy, wiz):
     """f(wo, wi) per channel (sr^-1), cosine not included; 0 for delta lobes."""
     tx, ty, tz, bx, by, bz = onb(nx, ny, nz)
     ix, iy, iz = _local(wix, wiy, wiz, tx, ty, tz, bx, by, bz, nx, ny, nz)
-    if kind == MAT_DIFFUSE:
+    if kind == MAT_LAMBERTIAN:
         return eval_diffuse(p, iz)
     ox, oy, oz = _local(wox, woy, woz, tx, ty, tz, bx, by, bz, nx, ny, nz)
-    if kind == MAT_ROUGH_CONDUCTOR:
+    if kind == MAT_ROUGH_METAL:
         return eval_rough_conductor(p, ox, oy, oz, ix, iy, iz)
-    if kind == MAT_ROUGH_DIELECTRIC:
+    if kind == MAT_ROUGH_GLASS:
         f = eval_rough_dielectric(p, front, ox, oy, oz, ix, iy, iz)
         return f, f, f
     if kind == MAT_METALLIC_ROUGHNESS:
@@ -318,13 +318,13 @@ def bsdf_pdf(kind, p, front, nx, ny, nz, wox, woy, woz, wix, wiy, wiz):
     """Solid-angle pdf with which bsdf_sample picks wi given wo (0 for delta lobes)."""
     tx, ty, tz, bx, by, bz = onb(nx, ny, nz)
     ix, iy, iz = _local(wix, wiy, wiz, tx, ty, tz, bx, by, bz, nx, ny, nz)
-    if kind == MAT_DIFFUSE:
+    if kind == MAT_LAMBERTIAN:
         return pdf_diffuse(iz)
     ox, oy, oz = _local(wox, woy, woz, tx, ty, tz, bx, by, bz, nx, ny, nz)
-    if kind == MAT_ROUGH_CONDUCTOR:
+    if kind == MAT_ROUGH_METAL:
         ax, ay = _alphas(p)
         return pdf_microfacet_reflection(ax, ay, ox, oy, oz, ix, iy, iz)
-    if kind == MAT_ROUGH_DIELECTRIC:
+    if kind == MAT_ROUGH_GLASS:
         return pdf_rough_dielectric(p, front, ox, oy, oz, ix, iy, iz)
     if kind == MAT_METALLIC_ROUGHNESS:
         return pdf_metallic_roughness(p, ox, oy, oz, ix, iy, iz)
@@ -342,7 +342,7 @@ def bsdf_sample(kind, p, front, nx, ny, nz, wox, woy, woz, u1, u2, u3):
     """
     tx, ty, tz, bx, by, bz = onb(nx, ny, nz)
     ox, oy, oz = _local(wox, woy, woz, tx, ty, tz, bx, by, bz, nx, ny, nz)
-    if kind == MAT_DIFFUSE:
+    if kind == MAT_LAMBERTIAN:
         lx, ly, lz = sample_cosine_hemisphere(u1, u2)
         pdf = pdf_diffuse(lz)
         if not (pdf > 0.0):
@@ -351,14 +351,14 @@ def bsdf_sample(kind, p, front, nx, ny, nz, wox, woy, woz, u1, u2, u3):
         return wx, wy, wz, p[0] * INV_PI, p[1] * INV_PI, p[2] * INV_PI, pdf, False
     if oz <= 0.0:
         return FAIL
-    if kind == MAT_MIRROR or kind == MAT_CONDUCTOR:
+    if kind == MAT_MIRROR or kind == MAT_SMOOTH_METAL:
         wx, wy, wz = _world(-ox, -oy, oz, tx, ty, tz, bx, by, bz, nx, ny, nz)
         if kind == MAT_MIRROR:
             fr, fg, fb = p[0], p[1], p[2]
         else:
             fr, fg, fb = _conductor_f(p, oz)
         return wx, wy, wz, fr / oz, fg / oz, fb / oz, 1.0, True
-    if kind == MAT_DIELECTRIC:
+    if kind == MAT_SMOOTH_GLASS:
         eta = _eta(p, front)
         F, ct = fresnel_dielectric(oz, eta)
         if u3 < F:
@@ -369,14 +369,14 @@ def bsdf_sample(kind, p, front, nx, ny, nz, wox, woy, woz, u1, u2, u3):
         wx, wy, wz = _world(-ox / eta, -oy / eta, -ct, tx, ty, tz, bx, by, bz, nx, ny, nz)
         f = (1.0 - F) / (eta * eta * ct)
         return wx, wy, wz, f, f, f, 1.0 - F, True
-    if kind == MAT_ROUGH_CONDUCTOR:
+    if kind == MAT_ROUGH_METAL:
         ax, ay = _alphas(p)
         ix, iy, iz, ok = sample_microfacet_reflection(ax, ay, ox, oy, oz, u1, u2)
         if not ok:
             return FAIL
         pdf = pdf_microfacet_reflection(ax, ay, ox, oy, oz, ix, iy, iz)
         fr, fg, fb = eval_rough_conductor(p, ox, oy, oz, ix, iy, iz)
-    elif kind == MAT_ROUGH_DIELECTRIC:
+    elif kind == MAT_ROUGH_GLASS:
         ix, iy, iz, ok = sample_rough_dielectric(p, front, ox, oy, oz, u1, u2, u3)
         if not ok:
             return FAIL

@@ -15,12 +15,12 @@ from .texture_load import pack_textures
 MAT_PARAMS = 16
 
 TYPE_CODES = {
-    "diffuse": B.MAT_DIFFUSE,
+    "lambertian": B.MAT_LAMBERTIAN,
     "mirror": B.MAT_MIRROR,
-    "dielectric": B.MAT_DIELECTRIC,
-    "rough_dielectric": B.MAT_ROUGH_DIELECTRIC,
-    "conductor": B.MAT_CONDUCTOR,
-    "rough_conductor": B.MAT_ROUGH_CONDUCTOR,
+    "glass": B.MAT_SMOOTH_GLASS,
+    "rough glass": B.MAT_ROUGH_GLASS,
+    "metal": B.MAT_SMOOTH_METAL,
+    "rough metal": B.MAT_ROUGH_METAL,
     "metallic_roughness": B.MAT_METALLIC_ROUGHNESS,
 }
 
@@ -38,16 +38,17 @@ def material_row(mat, textures: list) -> tuple[int, np.ndarray]:
             row[column] = len(textures)      # index + 1
 
     kind = mat.type
-    if kind == "diffuse":
+    rough = kind in ("glass", "metal") and (p["ggx_alpha"] is not None or p["ggx_alpha_texture"] is not None)
+    if kind == "lambertian":
         row[0:3] = p["albedo"]
         tex("albedo_texture", TEX_COLOUR)
     elif kind == "mirror":
         row[0:3] = p["reflectance"]
-    elif kind in ("dielectric", "rough_dielectric"):
-        row[0] = p["eta"]
-    elif kind in ("conductor", "rough_conductor"):
-        if p.get("reflectance") is not None:
-            row[0:3] = p["reflectance"]
+    elif kind == "glass":
+        row[0] = p["relative_ior"]
+    elif kind == "metal":
+        if p.get("f0") is not None:
+            row[0:3] = p["f0"]
             row[6] = 1.0
         else:
             row[0:3] = p["n"]
@@ -60,9 +61,11 @@ def material_row(mat, textures: list) -> tuple[int, np.ndarray]:
         tex("roughness_texture", TEX_ROUGHNESS)
     else:
         raise TypeError(f"material type {kind!r} has no kernel")
-    if kind in ("rough_dielectric", "rough_conductor"):
-        row[8], row[9] = p["alpha"]
-        tex("alpha_texture", TEX_ROUGHNESS)
+    if rough:
+        alpha = p["ggx_alpha"]
+        row[8], row[9] = alpha if alpha is not None else (1.0, 1.0)
+        tex("ggx_alpha_texture", TEX_ROUGHNESS)
+        kind = "rough " + kind
     return TYPE_CODES[kind], row
 
 

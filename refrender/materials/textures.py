@@ -26,7 +26,7 @@ import math
 import numpy as np
 
 from .._jit import inline
-from .bsdf import MAT_METALLIC_ROUGHNESS, MAT_ROUGH_CONDUCTOR, MAT_ROUGH_DIELECTRIC
+from .bsdf import MAT_METALLIC_ROUGHNESS, MAT_ROUGH_METAL, MAT_ROUGH_GLASS
 
 TEX_INFO = 12
 TEX_IMAGE = 0
@@ -134,6 +134,6 @@ def resolve_params(kind, row, info, data, u, v, out):
         s = texture_scalar(info, data, tr, u, v)
         if kind == MAT_METALLIC_ROUGHNESS:
             out[4] *= s
-        elif kind == MAT_ROUGH_CONDUCTOR or kind == MAT_ROUGH_DIELECTRIC:
+        elif kind == MAT_ROUGH_METAL or kind == MAT_ROUGH_GLASS:
             out[8] *= s
             out[9] *= s

@@ -35,7 +35,7 @@ import math
 from .._jit import inline
 from ..geometry.intersect import DISK, RECTANGLE, SPHERE, TRIANGLE
 from .warp import (PI, pdf_uniform_cone, sample_concentric_disk,
-                   sample_uniform_cone, sample_uniform_sphere, sample_uniform_triangle, to_world)
+                   sample_uniform_cone, sample_uniform_sphere, sample_uniform_triangle, local_to_global)
 
 MODE_AREA = 0
 MODE_SOLID_ANGLE = 1
@@ -63,7 +63,7 @@ def sample_area(kind, g, u1, u2):
         dx, dy = sample_concentric_disk(u1, u2)
         r = g[6]
         nx, ny, nz = g[3], g[4], g[5]
-        px, py, pz = to_world(dx * r, dy * r, 0.0, nx, ny, nz)
+        px, py, pz = local_to_global(dx * r, dy * r, 0.0, nx, ny, nz)
         return g[0] + px, g[1] + py, g[2] + pz, nx, ny, nz
     if kind == TRIANGLE:
         b1, b2 = sample_uniform_triangle(u1, u2)
@@ -125,7 +125,7 @@ def sample_sphere_cone(g, xx, xy, xz, d, omc, u1, u2):
     ay = (g[1] - xy) / d
     az = (g[2] - xz) / d
     lx, ly, lz = sample_uniform_cone(u1, u2, omc)
-    wx, wy, wz = to_world(lx, ly, lz, ax, ay, az)
+    wx, wy, wz = local_to_global(lx, ly, lz, ax, ay, az)
     # distance along w to the near intersection: d cos - sqrt(r^2 - d^2 sin^2)
     r = g[3]
     sin2 = lx * lx + ly * ly

@@ -235,7 +235,7 @@ def _disk(c, n, r):
 
 def registry():
     """Every sampler of the renderer, each from a representative shading point."""
-    from ..materials.bsdf import MAT_DIFFUSE
+    from ..materials.bsdf import MAT_LAMBERTIAN
     cases = []
     x = np.zeros(3)
     modes = (("solid_angle", MODE_SOLID_ANGLE), ("area", MODE_AREA))
@@ -260,7 +260,7 @@ def registry():
     img = rng.gamma(0.6, 1.0, size=(16, 32, 3))
     img[3, 20] = 400.0                     # a bright sun-like pixel
     cases.append(env_case("environment image", img, (1.0, 0.8, 0.6), 30.0))
-    cases.append(bsdf_case("diffuse BSDF", MAT_DIFFUSE, [0.7, 0.7, 0.7], [0.2, -0.3, 0.9],
+    cases.append(bsdf_case("diffuse BSDF", MAT_LAMBERTIAN, [0.7, 0.7, 0.7], [0.2, -0.3, 0.9],
                            [0.0, 0.5, 1.0]))
     cases.extend(ggx_cases())
     return cases

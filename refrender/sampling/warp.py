@@ -28,7 +28,7 @@ def onb(nx, ny, nz):
 
 
 @inline
-def to_world(lx, ly, lz, nx, ny, nz):
+def local_to_global(lx, ly, lz, nx, ny, nz):
     """Local direction (lx, ly, lz) in the frame of normal n -> world."""
     tx, ty, tz, bx, by, bz = onb(nx, ny, nz)
     return (lx * tx + ly * bx + lz * nx,

@@ -7,6 +7,7 @@ cross-references, products of fields).
 from __future__ import annotations
 
 import json
+import math
 from pathlib import Path
 
 import numpy as np
@@ -22,7 +23,7 @@ from .model import (
 MAX_PIXELS = 2 ** 28
 #: |sin| of the angle between camera.up and the view direction below which they are parallel.
 PARALLEL_TOLERANCE = 1e-6
-#: Largest deviation of R^T R from the identity accepted for camera.to_world.
+#: Largest deviation of R^T R from the identity accepted for camera.camera_to_world.
 ORTHONORMAL_TOLERANCE = 1e-4
 
 
@@ -55,13 +56,13 @@ def _look_at_matrix(spec: dict) -> np.ndarray:
     return _frame_matrix(right, np.cross(right, forward), -forward, position)
 
 
-def _given_to_world(rows: list) -> np.ndarray:
-    """Validate camera.to_world (a rigid motion) and re-orthonormalise it.
+def _given_camera_to_world(rows: list) -> np.ndarray:
+    """Validate camera.camera_to_world (a rigid motion) and re-orthonormalise it.
 
     Gram-Schmidt keeps the view axis (column 2) and then the right axis
     (column 0); the up axis is recomputed as Z x X.
     """
-    path = ("camera", "to_world")
+    path = ("camera", "camera_to_world")
     m = affine_matrix(rows, path)
     r = m[:3, :3]
     if not np.allclose(r.T @ r, np.eye(3), rtol=0.0, atol=ORTHONORMAL_TOLERANCE):
@@ -75,17 +76,51 @@ def _given_to_world(rows: list) -> np.ndarray:
     return _frame_matrix(right, np.cross(back, right), back, m[:3, 3])
 
 
+#: Sensor height (mm) when a perspective camera gives none: the 24 mm height of
+#: the 36 x 24 mm "full frame" format (common practice).
+DEFAULT_SENSOR_HEIGHT = 24.0
+
+
+def _field_of_view(spec: dict) -> tuple[float, float, float]:
+    """(fov_y degrees, focal length mm, sensor height mm) of a perspective camera.
+
+    fov_y = 2 atan(sensor_height / (2 focal_length)): the pinhole (or thin
+    lens focused at infinity) relation between field of view and focal length.
+    """
+    sensor = float(spec.get("sensor_height", DEFAULT_SENSOR_HEIGHT))
+    if "focal_length" in spec:
+        if "fov_y" in spec:
+            raise scene_error(("camera", "focal_length"), "give fov_y or focal_length (with sensor_height), "
+                              "not both")
+        focal = float(spec["focal_length"])
+        fov = math.degrees(2.0 * math.atan(sensor / (2.0 * focal)))
+        if not 0.0 < fov < 180.0:
+            raise scene_error(("camera", "focal_length"), f"gives a field of view of {fov:g} degrees with "
+                              f"sensor_height {sensor:g} mm; it must lie in (0, 180)")
+        return fov, focal, sensor
+    fov = float(spec.get("fov_y", 40.0))
+    return fov, sensor / (2.0 * math.tan(math.radians(fov) / 2.0)), sensor
+
+
 def build_camera(spec: dict) -> Camera:
     """The :class:`Camera` of a schema-valid ``camera`` entry."""
-    to_world = _given_to_world(spec["to_world"]) if "to_world" in spec else _look_at_matrix(spec)
-    return Camera(
-        projection=spec.get("projection", "perspective"),
-        to_world=to_world,
-        fov_y=float(spec.get("fov_y", 40.0)),
-        view_height=float(spec.get("view_height", 1.0)),
-        aperture_radius=float(spec.get("aperture_radius", 0.0)),
-        focus_distance=float(spec.get("focus_distance", 1.0)),
-    )
+    if "camera_to_world" in spec:
+        camera_to_world = _given_camera_to_world(spec["camera_to_world"])
+    else:
+        camera_to_world = _look_at_matrix(spec)
+    projection = spec.get("projection", "perspective")
+    if projection == "orthographic":
+        return Camera(projection=projection, camera_to_world=camera_to_world,
+                      view_height=float(spec.get("view_height", 1.0)))
+    fov, focal, sensor = _field_of_view(spec)
+    lens = spec.get("lens")
+    camera = Camera(projection=projection, camera_to_world=camera_to_world, fov_y=fov, focal_length=focal,
+                    sensor_height=sensor,
+                    f_number=None if lens is None else float(lens["f_number"]),
+                    focus_distance=1.0 if lens is None else float(lens["focus_distance"]))
+    if lens is not None and not math.isfinite(camera.lens_radius):
+        raise scene_error(("camera", "lens", "f_number"), "gives an aperture that is not finite")
+    return camera
 
 
 # ----------------------------------------------------------------------------- film
@@ -133,54 +168,56 @@ def _scalar(spec: dict, key: str, path: tuple, files: FileLog, default=None):
     return float(value), None
 
 
-def _alpha(spec: dict, path: tuple, files: FileLog) -> dict:
-    """GGX alpha: a number (isotropic), [alpha_x, alpha_y], or a scalar texture."""
-    value = spec["alpha"]
+def _ggx_alpha(spec: dict, path: tuple, files: FileLog) -> dict:
+    """GGX alpha: a number (isotropic), [along_tangent, along_bitangent], or a scalar texture.
+
+    Absent, 0 or [0, 0] is a perfectly smooth interface (``ggx_alpha`` None:
+    the delta code paths); a texture always takes the microfacet path."""
+    value = spec.get("ggx_alpha", 0.0)
     if isinstance(value, list):
-        return {"alpha": (float(value[0]), float(value[1])), "alpha_texture": None}
-    factor, tex = _scalar(spec, "alpha", path, files)
-    return {"alpha": (factor, factor), "alpha_texture": tex}
+        alpha = (float(value[0]), float(value[1]))
+        return {"ggx_alpha": None if alpha == (0.0, 0.0) else alpha, "ggx_alpha_texture": None}
+    factor, tex = _scalar(spec, "ggx_alpha", path, files, 0.0)
+    if tex is None and factor == 0.0:
+        return {"ggx_alpha": None, "ggx_alpha_texture": None}
+    return {"ggx_alpha": (factor, factor), "ggx_alpha_texture": tex}
 
 
-def _diffuse(spec: dict, path: tuple, files: FileLog) -> Material:
+def _lambertian(spec: dict, path: tuple, files: FileLog) -> Material:
     albedo, tex = _colour(spec, "albedo", path, files)
-    return Material(type="diffuse", params={"albedo": albedo, "albedo_texture": tex})
+    return Material(type="lambertian", params={"albedo": albedo, "albedo_texture": tex})
 
 
 def _mirror(spec: dict, path: tuple, files: FileLog) -> Material:
     return Material(type="mirror", params={"reflectance": vec3(spec.get("reflectance", [1.0, 1.0, 1.0]))})
 
 
-def _dielectric(spec: dict, path: tuple, files: FileLog) -> Material:
-    eta = float(spec.get("ior", 1.5)) / float(spec.get("outside_ior", 1.0))
-    params = {"eta": eta}
-    if spec["type"] == "rough_dielectric":
-        params.update(_alpha(spec, path, files))
-    return Material(type=spec["type"], params=params)
+def _glass(spec: dict, path: tuple, files: FileLog) -> Material:
+    relative_ior = float(spec.get("ior", 1.5)) / float(spec.get("exterior_ior", 1.0))
+    return Material(type="glass", params={"relative_ior": relative_ior, **_ggx_alpha(spec, path, files)})
 
 
-def _conductor(spec: dict, path: tuple, files: FileLog) -> Material:
+def _metal(spec: dict, path: tuple, files: FileLog) -> Material:
     from ..materials.presets import metal
-    given = [k for k in ("metal", "eta", "reflectance") if k in spec]
+    given = [k for k in ("preset", "n", "f0") if k in spec]
     if len(given) != 1:
-        raise scene_error(path, "give exactly one of \"metal\" (a preset), \"eta\" with \"k\", "
-                          f"or \"reflectance\"; got {', '.join(given) or 'none'}")
-    if "eta" in spec and "k" not in spec:
-        raise scene_error(path + ("k",), "required with \"eta\" (the extinction coefficient)")
-    if "k" in spec and "eta" not in spec:
-        raise scene_error(path + ("eta",), "required with \"k\"")
-    outside = float(spec.get("outside_ior", 1.0))
-    params = {"reflectance": None}
-    if "metal" in spec:
-        n, k = metal(spec["metal"])
-        params.update(n=n / outside, k=k / outside)
-    elif "eta" in spec:
-        params.update(n=vec3(spec["eta"]) / outside, k=vec3(spec["k"]) / outside)
+        raise scene_error(path, "give exactly one of \"preset\", \"n\" with \"k\" (the complex "
+                          f"refractive index n + ik), or \"f0\"; got {', '.join(given) or 'none'}")
+    if "n" in spec and "k" not in spec:
+        raise scene_error(path + ("k",), "required with \"n\" (the extinction coefficient)")
+    if "k" in spec and "n" not in spec:
+        raise scene_error(path + ("n",), "required with \"k\" (the real part of the refractive index)")
+    exterior = float(spec.get("exterior_ior", 1.0))
+    params = {"f0": None}
+    if "preset" in spec:
+        n, k = metal(spec["preset"])
+        params.update(n=n / exterior, k=k / exterior)
+    elif "n" in spec:
+        params.update(n=vec3(spec["n"]) / exterior, k=vec3(spec["k"]) / exterior)
     else:
-        params.update(reflectance=vec3(spec["reflectance"]), n=np.zeros(3), k=np.zeros(3))
-    if spec["type"] == "rough_conductor":
-        params.update(_alpha(spec, path, files))
-    return Material(type=spec["type"], params=params)
+        params.update(f0=vec3(spec["f0"]), n=np.zeros(3), k=np.zeros(3))
+    params.update(_ggx_alpha(spec, path, files))
+    return Material(type="metal", params=params)
 
 
 def _metallic_roughness(spec: dict, path: tuple, files: FileLog) -> Material:
@@ -193,12 +230,10 @@ def _metallic_roughness(spec: dict, path: tuple, files: FileLog) -> Material:
 
 
 _MATERIALS = {
-    "diffuse": _diffuse,
+    "lambertian": _lambertian,
     "mirror": _mirror,
-    "dielectric": _dielectric,
-    "rough_dielectric": _dielectric,
-    "conductor": _conductor,
-    "rough_conductor": _conductor,
+    "glass": _glass,
+    "metal": _metal,
     "metallic_roughness": _metallic_roughness,
 }
 
@@ -227,7 +262,7 @@ def build_objects(specs: list, materials: dict, files: FileLog) -> list[Object]:
             shape=build_shape(spec, path, files),
             material=_material_name(spec, path, materials),
             emission=vec3(spec.get("emission", [0.0, 0.0, 0.0])),
-            two_sided=bool(spec.get("two_sided", False)),
+            emits_both_sides=bool(spec.get("emits_both_sides", False)),
         ))
     return objects
 

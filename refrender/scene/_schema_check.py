@@ -5,6 +5,7 @@ first in document order) and rewrites it as ``field.path: short sentence``.
 """
 from __future__ import annotations
 
+import difflib
 import json
 from functools import lru_cache
 from importlib import resources
@@ -27,7 +28,7 @@ _TYPE_NAMES = {
 
 #: Extra words for a missing required key, by its field path.
 _REQUIRED_HINTS = {
-    ("camera", key): " (give position and look_at, or to_world)" for key in ("position", "look_at")
+    ("camera", key): " (give position and look_at, or camera_to_world)" for key in ("position", "look_at")
 }
 
 
@@ -143,7 +144,15 @@ def _unknown_key(path: tuple, inst: dict, subschema: dict) -> tuple[tuple, str]:
     known = list(subschema.get("properties", {}))
     extra = [k for k in inst if k not in known]
     expected = ", ".join(known) if known else "no keys"
-    return path + (extra[0],), f"unknown key (expected one of: {expected})"
+    return path + (extra[0],), f"unknown key{_did_you_mean(extra[0], known)} (expected one of: {expected})"
+
+
+def _did_you_mean(given: Any, valid: list) -> str:
+    """'; did you mean "x"?' for the closest valid string (difflib ratio >= 0.6), or ''."""
+    if not isinstance(given, str):
+        return ""
+    close = difflib.get_close_matches(given, [v for v in valid if isinstance(v, str)], n=1, cutoff=0.6)
+    return f"; did you mean {json.dumps(close[0])}?" if close else ""
 
 
 def _value_message(kind: str, value: Any, inst: Any, subschema: dict) -> str:
@@ -153,7 +162,8 @@ def _value_message(kind: str, value: Any, inst: Any, subschema: dict) -> str:
         names = value if isinstance(value, list) else [value]
         return f"expected {' or '.join(_TYPE_NAMES.get(n, n) for n in names)}, got {got}"
     if kind == "enum":
-        return f"must be one of {', '.join(json.dumps(v) for v in value)}; got {got}"
+        return (f"must be one of {', '.join(json.dumps(v) for v in value)}; got {got}"
+                f"{_did_you_mean(inst, value)}")
     if kind == "const":
         return f"must be {json.dumps(value)}, got {got}"
     bounds = {"minimum": ">=", "maximum": "<=", "exclusiveMinimum": ">", "exclusiveMaximum": "<"}

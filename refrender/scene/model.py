@@ -15,12 +15,24 @@ import numpy as np
 
 @dataclass(frozen=True)
 class Camera:
-    projection: str                 # "perspective" | "orthographic" | "thin_lens"
-    to_world: np.ndarray            # (4, 4) camera-to-world; camera looks down -Z, +Y up, +X right
+    projection: str                 # "perspective" | "orthographic"
+    camera_to_world: np.ndarray     # (4, 4); the camera looks down -Z, +Y up, +X right
     fov_y: float = 40.0             # degrees, full vertical field of view
     view_height: float = 1.0        # orthographic: height of the view in scene units
-    aperture_radius: float = 0.0    # thin lens
-    focus_distance: float = 1.0     # thin lens
+    focal_length: float | None = None   # mm: given, or implied by fov_y and sensor_height
+    sensor_height: float = 24.0     # mm
+    f_number: float | None = None   # lens: None = pinhole
+    focus_distance: float = 1.0     # lens: distance of the plane in focus, scene units
+
+    @property
+    def lens_radius(self) -> float:
+        """Radius of the thin lens's aperture in scene units (metres); 0 for a pinhole.
+
+        Aperture diameter = focal length / f-number, the focal length in mm
+        converted to metres (scene units are metres by convention)."""
+        if self.f_number is None or self.projection != "perspective":
+            return 0.0
+        return 0.5 * (self.focal_length * 1e-3) / self.f_number
 
 
 @dataclass(frozen=True)
@@ -37,7 +49,7 @@ class Film:
 
 @dataclass(frozen=True)
 class Material:
-    type: str                       # "diffuse" (core); extensions: see refrender.materials
+    type: str                       # "lambertian" (core); extensions: see refrender.materials
     params: dict[str, Any] = field(default_factory=dict)   # see scene._build._MATERIALS
 
 
@@ -77,7 +89,7 @@ class Object:
     shape: Shape
     material: str | None            # key into Scene.materials; None = black
     emission: np.ndarray            # (3,) radiance W m^-2 sr^-1
-    two_sided: bool = False
+    emits_both_sides: bool = False
 
 
 @dataclass(frozen=True)
