@@ -10,9 +10,13 @@ from ..errors import ImageError
 
 
 def add_parser(sub) -> None:
-    p = sub.add_parser("info", help="show the metadata and noise of a rendered EXR or state file")
-    p.add_argument("file", help="an EXR written by refrender, or its .state file")
+    p = sub.add_parser("info", help="show the metadata and noise of a rendered EXR or state file, "
+                       "or what a glTF file imports as")
+    p.add_argument("file", help="an EXR written by refrender, its .state file, or a .gltf/.glb file")
     p.add_argument("--json", action="store_true", help="print machine-readable JSON")
+    p.add_argument("--gltf-scene", type=int, metavar="INDEX", help="glTF files: the scene to read")
+    from .render import add_gltf_light_options
+    add_gltf_light_options(p)
     p.set_defaults(run=run)
 
 
@@ -55,11 +59,33 @@ def _flat(prefix, d, out):
             out.append((prefix + key, v))
 
 
+def _gltf_info(args) -> int:
+    """What the import of a glTF file makes of it (meshes ... ignored features)."""
+    from ..scene.gltf import import_gltf
+    report = import_gltf(args.file, light_units=args.light_units,
+                         light_range=args.light_range, gltf_scene=args.gltf_scene).report()
+    if args.json:
+        print(json.dumps(report, indent=2, sort_keys=True))
+        return 0
+    ignored = report.pop("ignored")
+    for key in ("meshes", "primitives", "instances", "triangles", "materials", "lights"):
+        print(f"{key:>{W}}: {report[key]}")
+    print(f"{'cameras':>{W}}: {len(report['cameras'])}"
+          + (f" ({', '.join(report['cameras'])})" if report["cameras"] else ""))
+    if not ignored:
+        print(f"{'ignored':>{W}}: nothing")
+    for feature, why in sorted(ignored.items()):
+        print(f"{'ignored':>{W}}: {feature}: {why}")
+    return 0
+
+
 def run(args) -> int:
     from ..overnight import format_duration
     path = Path(args.file)
     if not path.exists():
         raise ImageError(f"{path}: no such file")
+    if path.suffix.lower() in (".gltf", ".glb"):
+        return _gltf_info(args)
     info = describe(path)
     if args.json:
         print(json.dumps(info, indent=2, sort_keys=True))

@@ -64,10 +64,49 @@ def add_parser(sub) -> None:
                       help="render on a local Dask cluster of N worker processes (127.0.0.1 only)")
     farm.add_argument("--task-spp", type=int, metavar="N",
                       help="samples per pixel of one farm task (default: about 8 tasks per worker)")
+    gl = p.add_argument_group("glTF 2.0 scenes (SCENE is a .gltf or .glb file)")
+    gl.add_argument("--camera", metavar="NAME|INDEX",
+                    help="the camera: a node or camera name, or an index in node order "
+                    "(default: the first camera)")
+    gl.add_argument("--gltf-scene", type=int, metavar="INDEX",
+                    help="the glTF scene to render (default: the file's scene)")
+    gl.add_argument("--film-height", type=int, metavar="PIXELS",
+                    help="film height; the width follows the camera's aspect ratio (default 480)")
+    add_gltf_light_options(gl)
     p.add_argument("--preview", help="also write an sRGB PNG preview")
     p.add_argument("--exposure", type=float, default=0.0, help="preview exposure in stops")
     p.add_argument("--quiet", action="store_true", help="no progress bar or summary")
     p.set_defaults(run=run)
+
+
+def add_gltf_light_options(group) -> None:
+    """--light-units and --light-range (glTF files: KHR_lights_punctual)."""
+    group.add_argument("--light-units", choices=["photometric", "radiometric"], default="photometric",
+                       help="photometric (default): candela and lux, converted at 683 lm/W; "
+                       "radiometric: the numbers taken as W/sr and W/m^2")
+    group.add_argument("--light-range", choices=["honour", "ignore"], default="honour",
+                       help="honour (default): no light beyond a light's range, as the extension "
+                       "requires; ignore: inverse-square falloff alone (physics)")
+
+
+def is_gltf(path) -> bool:
+    return Path(path).suffix.lower() in (".gltf", ".glb")
+
+
+def load_any_scene(args):
+    """The scene of args.scene: a JSON scene, or a glTF file with the glTF options."""
+    from .. import load_scene
+    if not is_gltf(args.scene):
+        for opt in ("camera", "gltf_scene", "film_height"):
+            if getattr(args, opt, None) is not None:
+                raise RenderError(f"--{opt.replace('_', '-')}: applies only to a .gltf or .glb scene")
+        return load_scene(args.scene)
+    from ..scene.gltf import load_gltf_scene
+    if args.film_height is not None and not 1 <= args.film_height <= 2 ** 14:
+        raise RenderError(f"--film-height: must be in 1..16384, got {args.film_height}")
+    return load_gltf_scene(args.scene, camera=args.camera, gltf_scene=args.gltf_scene,
+                           film_height=args.film_height, light_units=args.light_units,
+                           light_range=args.light_range)
 
 
 def _check_output(path: Path, suffix: str, what: str) -> None:
@@ -152,7 +191,7 @@ def run(args) -> int:
     every = None
     if str(args.checkpoint_every).strip().lower() not in ("off", "none", "never", "0"):
         every = parse_duration(args.checkpoint_every, "--checkpoint-every")
-    scene = load_scene(args.scene)
+    scene = load_any_scene(args)
     prev = _previous(state, args)
     overrides, budget, first = _settings(args, prev)
     from ..render import SPP_UNLIMITED, resolve_settings

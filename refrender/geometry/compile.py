@@ -29,6 +29,9 @@ LIGHT_SURFACE = 0
 LIGHT_POINT = 1
 LIGHT_DIRECTIONAL = 2
 LIGHT_ENVIRONMENT = 3
+LIGHT_SPOT = 4
+#: floats per row of LightArrays.light_data
+LIGHT_DATA = 12
 
 # camera projection codes
 CAM_PERSPECTIVE = 0
@@ -63,7 +66,7 @@ class LightArrays(NamedTuple):
     """Emitters and their selection distribution (proportional to power)."""
     light_type: np.ndarray     # (L,) int32
     light_prim: np.ndarray     # (L,) int32 primitive (surface emitters), else -1
-    light_data: np.ndarray     # (L, 6) float64, per type (see build_lights)
+    light_data: np.ndarray     # (L, LIGHT_DATA) float64, per type (see build_lights)
     light_cdf: np.ndarray      # (L + 1,) float64, light_cdf[-1] == 1 (kept for tools)
     light_pmf: np.ndarray      # (L,) float64 selection probabilities
     prim_light_pmf: np.ndarray  # (n,) selection probability of primitive k as an emitter
@@ -198,6 +201,17 @@ def compile_scene(scene: m.Scene) -> SceneArrays:
         tex_info=tex_info, tex_data=tex_data)
 
 
+def spot_falloff(light) -> tuple[float, float, float]:
+    """(s, o, range) of a spot light for the kernel: the intensity toward a
+    direction at angle theta from the axis is I * clamp(cos(theta) s + o, 0, 1)^2,
+    with s = 1 / max(0.001, cos(inner) - cos(outer)) and o = -cos(outer) s
+    (KHR_lights_punctual, "Inner and Outer Cone Angles"); no cone: s = 0, o = 1."""
+    if not light.cone:
+        return 0.0, 1.0, light.range
+    s = 1.0 / max(0.001, light.cos_inner - light.cos_outer)
+    return s, -light.cos_outer * s, light.range
+
+
 def light_power(scene: m.Scene, arrays: SceneArrays):
     """Estimated emitted power (luminance-weighted, W) of every emitter.
 
@@ -215,16 +229,22 @@ def light_power(scene: m.Scene, arrays: SceneArrays):
         obj = arrays.prim_object[k]
         y = float(LUMINANCE @ arrays.obj_emission[obj])
         sides = 2.0 if arrays.obj_emits_both_sides[obj] else 1.0
-        data = np.zeros(6)
+        data = np.zeros(LIGHT_DATA)
         data[:3] = arrays.obj_emission[obj]
         rows.append((LIGHT_SURFACE, int(k), data, math.pi * arrays.prim_area[k] * y * sides))
     for light in scene.lights:
-        data = np.zeros(6)
+        data = np.zeros(LIGHT_DATA)
         if isinstance(light, m.PointLight):
-            data[:3], data[3:] = light.position, light.intensity
+            data[:3], data[3:6] = light.position, light.intensity
             rows.append((LIGHT_POINT, -1, data, 4.0 * math.pi * float(LUMINANCE @ light.intensity)))
+        elif isinstance(light, m.SpotLight):
+            data[:3], data[3:6], data[6:9] = light.position, light.intensity, light.direction
+            data[9:12] = spot_falloff(light)
+            # the cone's solid angle bounds the power (selection only)
+            solid = 2.0 * math.pi * (1.0 - light.cos_outer) if light.cone else 4.0 * math.pi
+            rows.append((LIGHT_SPOT, -1, data, solid * float(LUMINANCE @ light.intensity)))
         elif isinstance(light, m.DirectionalLight):
-            data[:3], data[3:] = light.direction, light.irradiance
+            data[:3], data[3:6] = light.direction, light.irradiance
             rows.append((LIGHT_DIRECTIONAL, -1, data, math.pi * R2 * float(LUMINANCE @ light.irradiance)))
         elif isinstance(light, m.EnvironmentLight):
             if getattr(light, "image", None) is not None:
@@ -264,16 +284,17 @@ def build_lights(scene: m.Scene, arrays: SceneArrays, strategy: str) -> LightArr
 
     ``light_data`` rows: surface emitter: radiance rgb; point: position,
     intensity; directional: travel direction, irradiance; environment:
-    radiance.
+    radiance; spot: position, intensity, axis, falloff scale s, offset o,
+    range (see spot_falloff).
     """
     rows = light_power(scene, arrays)
     if strategy == "bsdf":
-        rows = [r for r in rows if r[0] in (LIGHT_POINT, LIGHT_DIRECTIONAL)]
+        rows = [r for r in rows if r[0] in (LIGHT_POINT, LIGHT_DIRECTIONAL, LIGHT_SPOT)]
     rows = [r for r in rows if r[3] > 0.0]
     n = len(rows)
     light_type = np.array([r[0] for r in rows], dtype=np.int32)
     light_prim = np.array([r[1] for r in rows], dtype=np.int32)
-    light_data = np.array([r[2] for r in rows]).reshape(n, 6)
+    light_data = np.array([r[2] for r in rows]).reshape(n, LIGHT_DATA)
     power = np.array([r[3] for r in rows], dtype=np.float64)
     pmf = power / power.sum() if n else power
     cdf = np.zeros(n + 1)

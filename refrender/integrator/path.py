@@ -37,7 +37,7 @@ from .._jit import inline, kernel
 from ..geometry.intersect import SPHERE, is_planar, surface_point, surface_uv
 from ..geometry.intrinsics import cycles
 from ..geometry.traverse import closest_hit_fn as closest_hit, new_stack, occluded_fn as occluded
-from ..materials.bsdf import (MAT_BLACK, bsdf_eval, bsdf_is_delta, bsdf_pdf, bsdf_sample,
+from ..materials.bsdf import (ABSORPTION, MAT_BLACK, absorbs, bsdf_eval, bsdf_is_delta, bsdf_pdf, bsdf_sample,
                               bsdf_transmits)
 from ..materials.textures import is_textured, resolve_params
 from ..sampling.alias import alias_select
@@ -54,6 +54,7 @@ LIGHT_SURFACE = 0
 LIGHT_POINT = 1
 LIGHT_DIRECTIONAL = 2
 LIGHT_ENVIRONMENT = 3
+LIGHT_SPOT = 4
 
 DIMS_CAMERA = 4
 DIMS_PER_VERTEX = 8
@@ -112,6 +113,23 @@ def camera_ray(cam, px, py, u3, u4):
     vz = cam[8] * dx + cam[9] * dy + cam[10] * dz
     inv = 1.0 / math.sqrt(vx * vx + vy * vy + vz * vz)
     return wx, wy, wz, vx * inv, vy * inv, vz * inv
+
+
+@inline
+def spot_factor(ld, vx, vy, vz, dist):
+    """Angular falloff times distance window of a spot light row ``ld`` toward
+    the unit direction v (from the light) at distance ``dist``:
+    clamp(cos(theta) s + o, 0, 1)^2 * clamp(1 - (dist / range)^4, 0, 1)
+    (KHR_lights_punctual; see geometry.compile.spot_falloff)."""
+    c = vx * ld[6] + vy * ld[7] + vz * ld[8]
+    a = min(max(c * ld[9] + ld[10], 0.0), 1.0)
+    a *= a
+    rng = ld[11]
+    if not math.isinf(rng):
+        q = dist / rng
+        q *= q
+        a *= min(max(1.0 - q * q, 0.0), 1.0)
+    return a
 
 
 @inline
@@ -180,6 +198,27 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
         sdz = ld[2] - sz
         sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
         return (wx / dist, wy / dist, wz / dist, ld[3] / d2, ld[4] / d2, ld[5] / d2, pmf, True,
+                sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), -1)
+    if ltype == LIGHT_SPOT:
+        wx = ld[0] - x
+        wy = ld[1] - y
+        wz = ld[2] - z
+        d2 = wx * wx + wy * wy + wz * wz
+        dist = math.sqrt(d2)
+        if not (dist > 0.0):
+            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+        wx /= dist
+        wy /= dist
+        wz /= dist
+        fall = spot_factor(ld, -wx, -wy, -wz, dist)
+        if not (fall > 0.0):
+            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+        sdx = ld[0] - sx
+        sdy = ld[1] - sy
+        sdz = ld[2] - sz
+        sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
+        fall /= d2
+        return (wx, wy, wz, ld[3] * fall, ld[4] * fall, ld[5] * fall, pmf, True,
                 sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), -1)
     if ltype == LIGHT_DIRECTIONAL:
         return (-ld[0], -ld[1], -ld[2], ld[3], ld[4], ld[5], pmf, True,
@@ -251,6 +290,14 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
         x, y, z, nx, ny, nz = surface_point(kind, g, ox, oy, oz, dx, dy, dz, t, hu, hv)
         obj = S.prim_object[prim]
         cos_in = dx * nx + dy * ny + dz * nz
+        if cos_in > 0.0:
+            # the segment ran inside this surface's body: Beer-Lambert absorption
+            amat = S.obj_material[obj]
+            if absorbs(S.mat_type[amat], S.mat_params[amat]):
+                ap = S.mat_params[amat]
+                tr *= math.exp(-ap[ABSORPTION] * t)
+                tg *= math.exp(-ap[ABSORPTION + 1] * t)
+                tb *= math.exp(-ap[ABSORPTION + 2] * t)
         # emission
         em = S.obj_emission[obj]
         if (em[0] > 0.0 or em[1] > 0.0 or em[2] > 0.0) and (cos_in < 0.0 or S.obj_emits_both_sides[obj] == 1):

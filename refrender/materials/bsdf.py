@@ -23,8 +23,10 @@ type                   layout
 =====================  ==========================================================
 lambertian (1)         0-2 albedo
 mirror (2)             0-2 reflectance
-smooth glass (3)       0 relative index ior / exterior_ior (real)
-rough glass (4)        0 relative index; 8 alpha along tangent; 9 along bitangent
+smooth glass (3)       0 relative index ior / exterior_ior (real); 10-12 absorption
+                       coefficient of the inside (1 / scene unit, Beer-Lambert; 0 = clear)
+rough glass (4)        0 relative index; 8 alpha along tangent; 9 along bitangent;
+                       10-12 absorption as smooth glass
 smooth metal (5)       0-2 n; 3-5 k (both / exterior_ior); 6 = 1: constant f0 in 0-2
 rough metal (6)        as smooth metal; 8 alpha along tangent; 9 along bitangent
 metallic_roughness (7) 0-2 base colour; 3 metallic; 4 roughness (alpha = roughness^2)
@@ -396,6 +398,17 @@ def bsdf_sample(kind, p, front, nx, ny, nz, wox, woy, woz, u1, u2, u3):
         return FAIL
     wx, wy, wz = _world(ix, iy, iz, tx, ty, tz, bx, by, bz, nx, ny, nz)
     return wx, wy, wz, fr, fg, fb, pdf, False
+
+
+#: first column of a dielectric's interior absorption coefficient (RGB)
+ABSORPTION = 10
+
+
+@inline
+def absorbs(kind, p):
+    """Whether a ray inside a body of this material is absorbed (Beer-Lambert)."""
+    return ((kind == MAT_SMOOTH_GLASS or kind == MAT_ROUGH_GLASS)
+            and (p[ABSORPTION] > 0.0 or p[ABSORPTION + 1] > 0.0 or p[ABSORPTION + 2] > 0.0))
 
 
 @inline

@@ -46,6 +46,7 @@ def material_row(mat, textures: list) -> tuple[int, np.ndarray]:
         row[0:3] = p["reflectance"]
     elif kind == "glass":
         row[0] = p["relative_ior"]
+        row[B.ABSORPTION:B.ABSORPTION + 3] = p.get("absorption", 0.0)
     elif kind == "metal":
         if p.get("f0") is not None:
             row[0:3] = p["f0"]

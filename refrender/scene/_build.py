@@ -253,11 +253,17 @@ def _material_name(spec: dict, path: tuple, materials: dict) -> str | None:
     raise scene_error(path + ("material",), f"unknown material {json.dumps(name)} (known: {known})")
 
 
-def build_objects(specs: list, materials: dict, files: FileLog) -> list[Object]:
-    """The :class:`Object` list of ``objects``; mesh files are read through *files*."""
+def build_objects(specs: list, materials: dict, files: FileLog, imported: dict | None = None) -> list[Object]:
+    """The :class:`Object` list of ``objects``; mesh files are read through *files*.
+
+    ``imported`` maps the index of a ``gltf`` entry to its import
+    (:func:`refrender.scene.gltf.expand_gltf_object`), whose objects take its place."""
     objects = []
     for i, spec in enumerate(specs):
         path = ("objects", i)
+        if imported and i in imported:
+            objects.extend(imported[i].objects)
+            continue
         objects.append(Object(
             shape=build_shape(spec, path, files),
             material=_material_name(spec, path, materials),

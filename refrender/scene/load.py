@@ -219,8 +219,16 @@ def load_scene(source: str | os.PathLike | dict, *, base_dir: str | os.PathLike 
     camera = build_camera(document["camera"])
     film = build_film(document["film"])
     materials = build_materials(document.get("materials", {}), files)
-    objects = build_objects(document["objects"], materials, files)
+    imported = {}
+    for i, spec in enumerate(document["objects"]):
+        if spec["shape"] == "gltf":
+            from .gltf import expand_gltf_object
+            imported[i] = expand_gltf_object(spec, ("objects", i), files)
+            materials.update(imported[i].materials)
+    objects = build_objects(document["objects"], materials, files, imported)
     lights = build_lights(document.get("lights", []), files)
+    for part in imported.values():
+        lights.extend(part.lights)
     render = build_render(document.get("render", {}))
     return Scene(
         camera=camera, film=film, materials=materials, objects=objects, lights=lights, render=render,

@@ -113,7 +113,22 @@ class EnvironmentLight:
     image_path: str | None = None       # resolved file of the image
 
 
-Light = PointLight | DirectionalLight | EnvironmentLight
+@dataclass(frozen=True)
+class SpotLight:
+    """A point light with the smooth cone falloff and the distance window of the
+    glTF 2.0 extension KHR_lights_punctual (see refrender.scene.gltf._punctual).
+
+    ``cone`` False: no angular falloff (a point light with a ``range``)."""
+    position: np.ndarray
+    direction: np.ndarray           # unit spot axis, the way the light travels
+    intensity: np.ndarray           # (3,) W sr^-1 inside the inner cone
+    cos_inner: float
+    cos_outer: float
+    cone: bool = True
+    range: float = float("inf")     # no effect at distances >= range (inf: no window)
+
+
+Light = PointLight | DirectionalLight | EnvironmentLight | SpotLight
 
 
 @dataclass(frozen=True)
