@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from gltf_build import Gltf, box
+from refrender.scene.gltf_write import Gltf, box
 from refrender.errors import SceneError
 from refrender.scene.gltf import LUMINANCE, import_gltf, load_gltf_scene
 
@@ -358,3 +358,31 @@ def test_cli_renders_a_gltf_and_refuses_bad_ones(tmp_path):
     assert run.returncode == 0, run.stderr
     report = json.loads(run.stdout)
     assert report["triangles"] == 1 and report["cameras"] == ["main"]
+
+
+def test_base_colour_texture_and_uvs(tmp_path):
+    """glTF UV (0, 0) is the image's top-left (spec, from memory); refrender's v runs up from
+    the bottom (materials/textures.py), so v is flipped, and KHR_texture_transform's
+    scale/offset are rewritten for the flipped v: v' = sv v + (1 - sv - ov)."""
+    import base64
+    import io
+
+    import imageio.v3 as iio
+    png = io.BytesIO()
+    iio.imwrite(png, np.array([[[255, 0, 0], [0, 255, 0]], [[0, 0, 255], [188, 188, 188]]], np.uint8),
+                extension=".png")
+    g = Gltf()
+    g.doc["images"] = [{"uri": "data:image/png;base64," + base64.b64encode(png.getvalue()).decode()}]
+    g.doc["textures"] = [{"source": 0}]
+    g.use("KHR_texture_transform")
+    mat = g.material(pbrMetallicRoughness={"baseColorTexture": {"index": 0, "extensions": {
+        "KHR_texture_transform": {"scale": [2.0, 0.5], "offset": [0.25, 0.125]}}}, "metallicFactor": 0.0})
+    uv = g.accessor([[0, 0], [1, 0], [0, 1]])
+    g.node(mesh=g.mesh([[0, 1, 0], [1, 1, 0], [0, 0, 0]], material=mat, TEXCOORD_0=uv))
+    imp = import_gltf(g.write_gltf(tmp_path / "t.gltf"))
+    np.testing.assert_array_equal(imp.objects[0].shape.uvs, [[0, 1], [1, 1], [0, 0]])
+    tex = list(imp.materials.values())[0].params["base_color_texture"]
+    np.testing.assert_allclose(tex.data[0, 0], [1, 0, 0])              # first row = top of the image
+    # sRGB 188 -> linear 0.5029 (IEC 61966-2-1)
+    np.testing.assert_allclose(tex.data[1, 1], [((188 / 255 + 0.055) / 1.055) ** 2.4] * 3, rtol=1e-6)
+    assert tex.scale == (2.0, 0.5) and tex.offset == (0.25, 1.0 - 0.5 - 0.125)

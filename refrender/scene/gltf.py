@@ -172,6 +172,21 @@ def _primitive(f: GltfFile, m: int, p: int, prim, ignored: Ignored):
     return pos, tris, prim.material
 
 
+def _uvs(f: GltfFile, m: int, p: int, prim, tex_coord: int, count: int, cache: dict):
+    """(count, 2) refrender texture coordinates (u, 1 - v) of TEXCOORD_<tex_coord>, or None."""
+    key = ("uv", m, p, tex_coord)
+    if key not in cache:
+        acc = getattr(prim.attributes, f"TEXCOORD_{tex_coord}", None)
+        uv = None
+        if acc is not None:
+            uv = f.accessor(acc, ("meshes", m, "primitives", p, "attributes", f"TEXCOORD_{tex_coord}"))
+            if uv.shape != (count, 2) or not np.all(np.isfinite(uv)):
+                raise f.error(("accessors", acc), f"TEXCOORD_{tex_coord} must be {count} finite VEC2")
+            uv = np.stack([uv[:, 0], 1.0 - uv[:, 1]], axis=1).astype(np.float64)
+        cache[key] = uv
+    return cache[key]
+
+
 # ----------------------------------------------------------------------------- materials
 
 def _srgb_to_linear(c: np.ndarray) -> np.ndarray:
@@ -437,7 +452,12 @@ def import_gltf(path, *, label: str | None = None, gltf_scene: int | None = None
             pos, tris, mi = cache[key]
             if mi not in materials:
                 materials[mi] = _material(f, mi, ignored)
-            mat, mode, alpha, cutoff, double, _ = materials[mi]
+            mat, mode, alpha, cutoff, double, tex_coord = materials[mi]
+            uvs = None
+            if mat.params.get("base_color_texture") is not None or mat.params.get("roughness_texture") is not None:
+                uvs = _uvs(f, node.mesh, pi, prim, tex_coord, len(pos), cache)
+            if mode != "OPAQUE" and mat.params.get("base_color_texture") is not None:
+                ignored.add("alpha from a base colour texture", "not read: the factor's alpha decides")
             if mode == "MASK" and alpha < cutoff:
                 continue          # a constant alpha below the cutoff: the surface is not there
             if mode == "BLEND":
@@ -451,14 +471,15 @@ def import_gltf(path, *, label: str | None = None, gltf_scene: int | None = None
                 continue
             name = f"{prefix}default" if mi is None else f"{prefix}materials[{mi}]"
             out.materials[name] = mat
-            out.objects.append(Object(shape=TriangleMesh(positions=wpos, indices=t,
+            out.objects.append(Object(shape=TriangleMesh(positions=wpos, indices=t, uvs=uvs,
                                                          source=f"{f.label}#meshes[{node.mesh}]"),
                                       material=name, emission=np.zeros(3), emits_both_sides=double))
             n_tris += len(t)
     if f.doc.animations:
         ignored.add("animations", "the file's static pose is rendered")
     out.digests = f.digests
-    out.counts = {"meshes": len({k[0] for k in cache}), "primitives": len(cache),
+    prims = [k for k in cache if k[0] != "uv"]
+    out.counts = {"meshes": len({k[0] for k in prims}), "primitives": len(prims),
                   "instances": n_inst, "triangles": n_tris, "materials": len(out.materials),
                   "lights": len(out.lights)}
     out.ignored = ignored.notes

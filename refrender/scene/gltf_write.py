@@ -1,4 +1,4 @@
-"""A small glTF 2.0 writer for the tests (and the demo script): accessors into one
+"""A small glTF 2.0 writer (tests and tools/make_gltf_demo.py): accessors into one
 buffer, written as a .gltf with a data: URI or an external .bin, or as a .glb.
 
 The layout follows the glTF 2.0 specification (sections "Buffers and Buffer
