@@ -59,7 +59,7 @@ def test_cameras_sample_has_both_cameras():
     assert ortho.camera.projection == "orthographic"
     assert ortho.camera.view_height == 2.0 and ortho.aspect == 1.0      # ymag is a half-height
     for c in imp.cameras:
-        np.testing.assert_allclose(c.camera.to_world, [[1, 0, 0, 0.5], [0, 1, 0, 0.5],
+        np.testing.assert_allclose(c.camera.camera_to_world, [[1, 0, 0, 0.5], [0, 1, 0, 0.5],
                                                        [0, 0, 1, 3.0], [0, 0, 0, 1]], atol=1e-12)
 
 
@@ -161,7 +161,7 @@ def test_materials_and_photometric_lights(tmp_path):
     with pytest.warns(UserWarning, match="EXT_something_new"):
         imp = import_gltf(g.write_gltf(tmp_path / "m.gltf"))
     mats = list(imp.materials.values())
-    assert mats[0].type == "dielectric" and mats[0].params["eta"] == 1.33
+    assert mats[0].type == "glass" and mats[0].params["relative_ior"] == 1.33
     # KHR_materials_volume: sigma = -ln(attenuationColor) / attenuationDistance
     np.testing.assert_allclose(mats[0].params["absorption"], -np.log([0.5, 0.25, 1.0]) / 2.0)
     assert mats[1].type == "metallic_roughness"
@@ -189,7 +189,7 @@ def _spot_scene(tmp_path, light: dict, light_range: str = "honour"):
         "camera": {"projection": "orthographic", "position": [0, 0, 5], "look_at": [0, 0, 0],
                    "up": [0, 1, 0], "view_height": 4.0},
         "film": {"width": 16, "height": 16},
-        "materials": {"white": {"type": "diffuse", "albedo": [1, 1, 1]}},
+        "materials": {"white": {"type": "lambertian", "albedo": [1, 1, 1]}},
         "objects": [{"shape": "rectangle", "origin": [-2, -2, 0], "edge1": [4, 0, 0], "edge2": [0, 4, 0],
                      "material": "white"},
                     {"shape": "gltf", "path": "light.gltf", "light_units": "radiometric",
