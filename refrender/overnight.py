@@ -244,8 +244,8 @@ def check_resumable(prev, meta: dict, first_sample: int, where: str = "resume") 
     Returns the number of samples per pixel already done.  Raises RenderError
     naming the first field that differs.
     """
-    from .result import ESTIMATOR_KEYS
-    for key in ESTIMATOR_KEYS:
+    from .result import MERGE_KEYS
+    for key in MERGE_KEYS:
         if prev.meta.get(key) != meta.get(key):
             what = "scene (content hash)" if key == "scene_sha256" else key
             raise RenderError(f"{where}: the checkpoint differs in {what}: "

@@ -1,6 +1,7 @@
 """The render entry point: scene -> arrays -> kernel passes -> Result."""
 from __future__ import annotations
 
+import dataclasses
 import time
 from contextlib import contextmanager
 
@@ -10,6 +11,7 @@ import numpy as np
 from .errors import RenderError
 from .geometry.compile import build_lights, camera_array, compile_scene
 from .integrator.path import STRATEGY_BSDF, STRATEGY_MIS, STRATEGY_NEE, render_pass
+from .sampling.filters import build_filter, is_pixel_square
 from .overnight import (DEFAULT_MIN_SPP, check_memory, check_resumable, kernel_sha256, next_check,
                         target_statistic)
 from .result import Result, warn_nonfinite
@@ -48,9 +50,14 @@ class Settings(dict):
 
 
 def resolve_settings(scene: Scene, *, spp=None, seed=None, max_bounces=_UNSET, rr_start=None,
-                     strategy=None, light_sampling=None) -> Settings:
+                     strategy=None, light_sampling=None, color_space=None, layers=None) -> Settings:
+    from .color import check_space
+    from .layers import parse_requests
     rs = scene.render
-    st = Settings(spp=rs.spp if spp is None else spp,
+    st = Settings(color_space=check_space(getattr(rs, "color_space", "linear_rec709")
+                                          if color_space is None else color_space),
+                  layers=parse_requests(getattr(rs, "layers", ()) if layers is None else layers),
+                  spp=rs.spp if spp is None else spp,
                   seed=rs.seed if seed is None else seed,
                   max_bounces=rs.max_bounces if max_bounces is _UNSET else max_bounces,
                   rr_start=rs.rr_start if rr_start is None else rr_start,
@@ -99,7 +106,8 @@ def _check_budget(time_limit, target_error, min_spp, checkpoint_every):
 def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_bounces=_UNSET,
            rr_start=None, strategy=None, light_sampling=None, threads=None,
            progress=None, time_limit=None, target_error=None, min_spp=DEFAULT_MIN_SPP,
-           resume=None, checkpoint=None, checkpoint_every=None, should_stop=None) -> Result:
+           resume=None, checkpoint=None, checkpoint_every=None, should_stop=None,
+           color_space=None, layers=None) -> Result:
     """Render a scene.
 
     Keyword arguments override the scene's ``render`` block.  Samples
@@ -123,6 +131,11 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
     progress : callable, optional
         Called after every pass as ``progress(samples_done, spp_cap, rays,
         seconds)``; ``spp_cap`` is None when only time or error budgets apply.
+    color_space : str, optional
+        Working colour space (refrender.color.SPACES): what the scene's RGB
+        numbers and the output mean; default ``render.color_space``.
+    layers : list of str or str, optional
+        Layers beside the beauty (refrender.layers); default ``render.layers``.
     resume : Result, optional
         A checkpoint (``Result.from_state``) of this render: its accumulators
         are continued, so the outcome is bit-identical to a render that was
@@ -146,7 +159,10 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
     uncapped = spp is None and (time_limit is not None or target_error is not None)
     st = resolve_settings(scene, spp=SPP_UNLIMITED if uncapped else spp, seed=seed,
                           max_bounces=max_bounces, rr_start=rr_start, strategy=strategy,
-                          light_sampling=light_sampling)
+                          light_sampling=light_sampling, color_space=color_space, layers=layers)
+    if st["color_space"] != getattr(scene.render, "color_space", "linear_rec709"):
+        scene = dataclasses.replace(scene, render=dataclasses.replace(
+            scene.render, color_space=st["color_space"]))
     _check_int("first_sample", first_sample, 0, 2 ** 62)
     _check_budget(time_limit, target_error, min_spp, checkpoint_every)
     x0, y0, x1, y1 = scene.film.window
@@ -155,12 +171,29 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
                 light_sampling=st["light_sampling"], max_bounces=st["max_bounces"],
                 rr_start=int(st["rr_start"]), width=scene.film.width, height=scene.film.height,
                 window=[x0, y0, x1, y1])
+    film = scene.film
+    fname, fparams = getattr(film, "filter", "box"), dict(getattr(film, "filter_params", {"radius": 0.5}))
+    if not is_pixel_square(fname, fparams):
+        meta["filter"] = dict(fparams, type=fname)
+    if st["color_space"] != "linear_rec709":
+        meta["color_space"] = st["color_space"]
+    fa = build_filter(fname, fparams)
+    S = compile_scene(scene)
+    from .layers import id_images, plan
+    lp = plan(scene, S, st["strategy"], st["layers"])
+    if st["layers"]:
+        meta["layers"] = list(st["layers"])
+        meta["layer_slots"] = list(lp.slots)
+    n_slots = len(lp.slots)
     kernels = kernel_sha256()
     if resume is not None:
         done = check_resumable(resume, meta, first_sample)
         acc_sum = np.array(resume.sum, dtype=np.float64, order="C")
         acc_sq = np.array(resume.sum_sq, dtype=np.float64, order="C")
         acc_n = np.array(resume.count, dtype=np.int64, order="C")
+        if n_slots:
+            acc_lsum = np.array(resume.layer_sum, dtype=np.float64, order="C")
+            acc_lsq = np.array(resume.layer_sq, dtype=np.float64, order="C")
         prev_stats, prev_run = dict(resume.stats), dict(resume.run)
     else:
         check_memory(h, w)
@@ -169,7 +202,12 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
         acc_sq = np.zeros((h, w, 3))
         acc_n = np.zeros((h, w), dtype=np.int64)
         prev_stats, prev_run = {}, {}
-    S = compile_scene(scene)
+    if not (resume is not None and n_slots):
+        acc_lsum = np.zeros((h, w, n_slots, 3))
+        acc_lsq = np.zeros((h, w, n_slots, 3))
+    ids = None
+    if any(k in st["layers"] for k in ("object_id", "material_id")):
+        ids = id_images(scene, S, (x0, y0, x1, y1))
     L = build_lights(scene, S, st["strategy"])
     cam = camera_array(scene)
     row_rays = np.zeros(h, dtype=np.int64)
@@ -207,7 +245,9 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
         if target_error is not None:
             run.update(target_statistic=stat, error_checks=[list(c) for c in checks])
         ranges = [(first_sample, first_sample + done)] if done else []
-        return Result(acc_sum, acc_sq, acc_n, ranges, dict(meta), stats, run)
+        return Result(acc_sum, acc_sq, acc_n, ranges, dict(meta), stats, run,
+                      layer_sum=acc_lsum if n_slots else None, layer_sq=acc_lsq if n_slots else None,
+                      ids=ids)
 
     def test_target():
         """At a schedule point: record the statistic; True when it is below the target."""
@@ -246,7 +286,8 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
                 n = max(1, min(n, fit))
             t = _clock()
             render_pass(*args, first_sample + done, n, order, acc_sum, acc_sq, acc_n,
-                        row_rays, row_bad, row_time)
+                        row_rays, row_bad, row_time, fa.filt, fa.cdf, fa.pdf, lp.lay_depth,
+                        lp.lay_obj, lp.lay_light, lp.lay_misc, acc_lsum, acc_lsq)
             dt = _clock() - t
             done += n
             per_spp = dt / n

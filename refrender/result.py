@@ -12,6 +12,10 @@ from .errors import ImageError, RenderError
 #: metadata keys that must agree for two results to be merged
 ESTIMATOR_KEYS = ("scene_sha256", "seed", "strategy", "light_sampling", "max_bounces",
                   "rr_start", "width", "height", "window")
+#: estimator keys present only when not at their default (box filter, linear
+#: Rec. 709, no layers), so results without them read and merge as before
+OPTIONAL_KEYS = ("filter", "color_space", "layers", "layer_slots")
+MERGE_KEYS = ESTIMATOR_KEYS + OPTIONAL_KEYS
 
 
 @dataclass
@@ -45,6 +49,33 @@ class Result:
     meta: dict
     stats: dict = field(default_factory=dict)
     run: dict = field(default_factory=dict)
+    #: (H, W, slots, 3) float64 sums and sums of squares of the layer slots
+    #: (names: ``meta["layer_slots"]``), or None without layers
+    layer_sum: np.ndarray | None = None
+    layer_sq: np.ndarray | None = None
+    #: pixel-centre id images ``object_id``/``material_id`` (H, W) and ``names``
+    ids: dict | None = None
+
+    @property
+    def layer_slots(self) -> list:
+        return list(self.meta.get("layer_slots") or [])
+
+    def layer_mean(self, name: str) -> np.ndarray:
+        """(H, W, 3) mean of one layer slot (e.g. ``"indirect"``, ``"light.window"``)."""
+        i = self._slot(name)
+        n = np.maximum(self.count, 1)[..., None]
+        return self.layer_sum[:, :, i, :] / n
+
+    def layer_variance(self, name: str) -> np.ndarray:
+        """(H, W, 3) variance of the mean of one layer slot (inf below 2 samples)."""
+        i = self._slot(name)
+        return _variance(self.layer_sum[:, :, i, :], self.layer_sq[:, :, i, :], self.count)
+
+    def _slot(self, name):
+        slots = self.layer_slots
+        if name not in slots or self.layer_sum is None:
+            raise RenderError(f"no layer {name!r} in this result (has {', '.join(slots) or 'none'})")
+        return slots.index(name)
 
     @property
     def spp(self) -> int:
@@ -63,11 +94,7 @@ class Result:
 
         Unbiased sample variance divided by n; inf where a pixel has < 2 samples.
         """
-        n = self.count[..., None].astype(np.float64)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            s2 = (self.sum_sq - self.sum * self.sum / n) / (n - 1.0)
-            var = np.maximum(s2, 0.0) / n
-        return np.where(n >= 2, var, np.inf)
+        return _variance(self.sum, self.sum_sq, self.count)
 
     @property
     def window(self) -> tuple:
@@ -95,11 +122,42 @@ class Result:
         # the state first: it is what resume and merge need, and a failed state
         # write then leaves no EXR without its accumulators
         if state:
-            save_state(state_path_for(path),
-                       {"sum": self.sum, "sum_sq": self.sum_sq, "count": self.count}, meta)
-        write_exr(path, mean, variance, meta)
+            arrays = {"sum": self.sum, "sum_sq": self.sum_sq, "count": self.count}
+            if self.layer_sum is not None:
+                arrays.update(layer_sum=self.layer_sum, layer_sq=self.layer_sq)
+            if self.ids is not None:
+                arrays.update(object_id=self.ids["object_id"], material_id=self.ids["material_id"])
+            save_state(state_path_for(path), arrays, meta)
+        layers, channels = self.exr_layers()
+        write_exr(path, mean, variance, meta, layers=layers, channels=channels,
+                  chromaticities=chromaticities_of(self.meta.get("color_space")))
         if preview is not None:
             write_png_preview(preview, self.mean, exposure=exposure)
+
+    def exr_layers(self) -> tuple[dict, dict]:
+        """EXR layers (name -> (H, W, 3)) and single channels (name -> (H, W)) of
+        the layer slots and id images (see refrender.layers)."""
+        layers, channels = {}, {}
+        for name in self.layer_slots:
+            if name in ("normal", "position", "depth"):
+                if name not in self.meta.get("layers", ()):
+                    continue
+                m = self.layer_mean(name)
+                if name == "depth":
+                    channels["depth.Z"] = m[..., 0]
+                else:
+                    for i, c in enumerate("XYZ"):
+                        channels[f"{name}.{c}"] = m[..., i]
+                continue
+            if name == "albedo" and name not in self.meta.get("layers", ()):
+                continue
+            layers[name] = self.layer_mean(name)
+            layers[f"{name}.variance"] = self.layer_variance(name)
+        if self.ids is not None:
+            for key in ("object_id", "material_id"):
+                if key in self.meta.get("layers", ()):
+                    channels[f"{key}.index"] = self.ids[key]
+        return layers, channels
 
     def metadata(self, noise=None) -> dict:
         """Settings, sample ranges, stats, run record and noise summary (as written
@@ -111,6 +169,8 @@ class Result:
                     stats=dict(self.stats), run=dict(self.run),
                     noise=self.noise_summary() if noise is None else noise,
                     stop_reason=self.run.get("stop_reason"))
+        if self.ids is not None:
+            meta["ids"] = self.ids["names"]
         return meta
 
     @classmethod
@@ -126,10 +186,17 @@ class Result:
         from .io import load_state
         arrays, meta = load_state(path)
         try:
+            est = {k: meta[k] for k in ESTIMATOR_KEYS}
+            est.update({k: meta[k] for k in OPTIONAL_KEYS if k in meta})
+            ids = None
+            if "object_id" in arrays:
+                ids = {"object_id": arrays["object_id"], "material_id": arrays["material_id"],
+                       "names": meta["ids"]}
             res = cls(sum=arrays["sum"], sum_sq=arrays["sum_sq"], count=arrays["count"],
                       sample_ranges=[tuple(r) for r in meta["sample_ranges"]],
-                      meta={k: meta[k] for k in ESTIMATOR_KEYS}, stats=dict(meta.get("stats") or {}),
-                      run=dict(meta.get("run") or {}))
+                      meta=est, stats=dict(meta.get("stats") or {}),
+                      run=dict(meta.get("run") or {}), layer_sum=arrays.get("layer_sum"),
+                      layer_sq=arrays.get("layer_sq"), ids=ids)
         except KeyError as exc:
             raise ImageError(f"{path}: state file lacks {exc.args[0]!r}") from None
         except (TypeError, ValueError):
@@ -138,6 +205,14 @@ class Result:
         if problem:
             raise ImageError(f"{path}: inconsistent state file ({problem})")
         return res
+
+
+def _variance(total, total_sq, count):
+    n = count[..., None].astype(np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s2 = (total_sq - total * total / n) / (n - 1.0)
+        var = np.maximum(s2, 0.0) / n
+    return np.where(n >= 2, var, np.inf)
 
 
 def _is_int(v) -> bool:
@@ -165,6 +240,15 @@ def _state_problem(res: "Result"):
     spp = res.spp
     if res.count.size and (int(res.count.min()) < 0 or int(res.count.max()) > spp):
         return f"sample counts outside [0, {spp}]"
+    slots = res.meta.get("layer_slots") or []
+    if (res.layer_sum is None) != (not slots) or (res.layer_sq is None) != (not slots):
+        return f"layer arrays do not match layer_slots {slots!r}"
+    if slots:
+        for name, arr in (("layer_sum", res.layer_sum), ("layer_sq", res.layer_sq)):
+            if arr.shape != (h, w, len(slots), 3) or arr.dtype != np.float64:
+                return f"array {name!r} is {arr.dtype}{list(arr.shape)}, expected float64{[h, w, len(slots), 3]}"
+        if not (np.all(np.isfinite(res.layer_sum)) and np.all(np.isfinite(res.layer_sq))):
+            return "non-finite layer sums"
     if not (np.all(np.isfinite(res.sum)) and np.all(np.isfinite(res.sum_sq))):
         return "non-finite sums"
     if np.any(res.sum_sq < 0):
@@ -215,7 +299,7 @@ def merge(results, names=None) -> Result:
     names = [f"input {i}" for i in range(len(results))] if names is None else [str(n) for n in names]
     first = results[0]
     for i, r in enumerate(results[1:], start=1):
-        for key in ESTIMATOR_KEYS:
+        for key in MERGE_KEYS:
             if r.meta.get(key) != first.meta.get(key):
                 what = "scene_sha256 (scene content hash)" if key == "scene_sha256" else key
                 raise RenderError(f"merge: {names[i]} differs from {names[0]} in {what}: "
@@ -231,10 +315,15 @@ def merge(results, names=None) -> Result:
     s = np.zeros_like(first.sum)
     sq = np.zeros_like(first.sum_sq)
     n = np.zeros_like(first.count)
+    ls = None if first.layer_sum is None else np.zeros_like(first.layer_sum)
+    lq = None if first.layer_sq is None else np.zeros_like(first.layer_sq)
     for i in order:
         s += results[i].sum
         sq += results[i].sum_sq
         n += results[i].count
+        if ls is not None:
+            ls += results[i].layer_sum
+            lq += results[i].layer_sq
     stats = {"rays": sum(int(r.stats.get("rays", 0)) for r in results),
              "seconds": sum(float(r.stats.get("seconds", 0.0)) for r in results),
              "nonfinite_samples": sum(int(r.stats.get("nonfinite_samples", 0)) for r in results)}
@@ -258,7 +347,14 @@ def merge(results, names=None) -> Result:
             merged[-1][1] = b
         else:
             merged.append([a, b])
-    return Result(s, sq, n, [tuple(r) for r in merged], dict(first.meta), stats, run)
+    return Result(s, sq, n, [tuple(r) for r in merged], dict(first.meta), stats, run,
+                  layer_sum=ls, layer_sq=lq, ids=first.ids)
+
+
+def chromaticities_of(space):
+    """OpenEXR chromaticities of a working space name (None: linear Rec. 709)."""
+    from .color import chromaticities
+    return chromaticities(space or "linear_rec709")
 
 
 def warn_nonfinite(count: int) -> None:

@@ -151,7 +151,8 @@ def _prim_uv(shape, count):
 
 def compile_scene(scene: m.Scene) -> SceneArrays:
     """Flatten the scene's geometry and build the BVH."""
-    index, mat_type, mat_params, tex_info, tex_data = material_table(scene.materials)
+    index, mat_type, mat_params, tex_info, tex_data = material_table(
+        scene.materials, getattr(scene.render, "color_space", "linear_rec709"))
     types, geoms, areas, objs, local, uvs = [], [], [], [], [], []
     obj_material = np.zeros(len(scene.objects), dtype=np.int32)
     obj_emission = np.zeros((len(scene.objects), 3))
@@ -231,21 +232,22 @@ def light_power(scene: m.Scene, arrays: SceneArrays):
         sides = 2.0 if arrays.obj_emits_both_sides[obj] else 1.0
         data = np.zeros(LIGHT_DATA)
         data[:3] = arrays.obj_emission[obj]
-        rows.append((LIGHT_SURFACE, int(k), data, math.pi * arrays.prim_area[k] * y * sides))
-    for light in scene.lights:
+        rows.append((LIGHT_SURFACE, int(k), data, math.pi * arrays.prim_area[k] * y * sides, -1))
+    for src, light in enumerate(scene.lights):
         data = np.zeros(LIGHT_DATA)
         if isinstance(light, m.PointLight):
             data[:3], data[3:6] = light.position, light.intensity
-            rows.append((LIGHT_POINT, -1, data, 4.0 * math.pi * float(LUMINANCE @ light.intensity)))
+            rows.append((LIGHT_POINT, -1, data, 4.0 * math.pi * float(LUMINANCE @ light.intensity), src))
         elif isinstance(light, m.SpotLight):
             data[:3], data[3:6], data[6:9] = light.position, light.intensity, light.direction
             data[9:12] = spot_falloff(light)
             # the cone's solid angle bounds the power (selection only)
             solid = 2.0 * math.pi * (1.0 - light.cos_outer) if light.cone else 4.0 * math.pi
-            rows.append((LIGHT_SPOT, -1, data, solid * float(LUMINANCE @ light.intensity)))
+            rows.append((LIGHT_SPOT, -1, data, solid * float(LUMINANCE @ light.intensity), src))
         elif isinstance(light, m.DirectionalLight):
             data[:3], data[3:6] = light.direction, light.irradiance
-            rows.append((LIGHT_DIRECTIONAL, -1, data, math.pi * R2 * float(LUMINANCE @ light.irradiance)))
+            rows.append((LIGHT_DIRECTIONAL, -1, data, math.pi * R2 * float(LUMINANCE @ light.irradiance),
+                         src))
         elif isinstance(light, m.EnvironmentLight):
             if getattr(light, "image", None) is not None:
                 data[:3] = light.scale
@@ -254,7 +256,7 @@ def light_power(scene: m.Scene, arrays: SceneArrays):
             else:
                 data[:3] = light.radiance
                 power = 4.0 * math.pi ** 2 * R2 * float(LUMINANCE @ light.radiance)
-            rows.append((LIGHT_ENVIRONMENT, -1, data, power))
+            rows.append((LIGHT_ENVIRONMENT, -1, data, power, src))
         else:
             raise TypeError(f"unknown light {type(light).__name__}")
     return rows
@@ -275,6 +277,15 @@ def _env_tables(light):
     return hit[1]
 
 
+def light_rows(scene: m.Scene, arrays: SceneArrays, strategy: str) -> list:
+    """The rows of the light table, in table order: (type, primitive, data,
+    power, index in scene.lights or -1 for a surface emitter)."""
+    rows = light_power(scene, arrays)
+    if strategy == "bsdf":
+        rows = [r for r in rows if r[0] in (LIGHT_POINT, LIGHT_DIRECTIONAL, LIGHT_SPOT)]
+    return [r for r in rows if r[3] > 0.0]
+
+
 def build_lights(scene: m.Scene, arrays: SceneArrays, strategy: str) -> LightArrays:
     """Emitter table and power-proportional selection distribution.
 
@@ -287,10 +298,7 @@ def build_lights(scene: m.Scene, arrays: SceneArrays, strategy: str) -> LightArr
     radiance; spot: position, intensity, axis, falloff scale s, offset o,
     range (see spot_falloff).
     """
-    rows = light_power(scene, arrays)
-    if strategy == "bsdf":
-        rows = [r for r in rows if r[0] in (LIGHT_POINT, LIGHT_DIRECTIONAL, LIGHT_SPOT)]
-    rows = [r for r in rows if r[3] > 0.0]
+    rows = light_rows(scene, arrays, strategy)
     n = len(rows)
     light_type = np.array([r[0] for r in rows], dtype=np.int32)
     light_prim = np.array([r[1] for r in rows], dtype=np.int32)

@@ -25,6 +25,10 @@ Russian roulette: once a path has scattered k >= rr_start times it continues
 with probability q = min(0.95, max_c throughput_c) and its throughput is
 divided by q, which keeps the estimator unbiased.
 
+Pixel filters: the film position of a sample is drawn from the pixel filter
+(filter importance sampling, sampling/filters.py) and the sample counts for
+its own pixel alone, times the filter weight.
+
 Random dimensions of one path: 0-3 camera (pixel position, lens), then 8 per
 vertex: light choice, 2 light sample, 2 BSDF sample, roulette, spare, BSDF lobe choice.
 """
@@ -42,6 +46,7 @@ from ..materials.bsdf import (ABSORPTION, MAT_BLACK, absorbs, bsdf_eval, bsdf_is
 from ..materials.textures import is_textured, resolve_params
 from ..sampling.alias import alias_select
 from ..sampling.envmap import env_pdf, env_radiance, env_sample
+from ..sampling.filters import filter_offset
 from ..sampling.lights import pdf_emitter, sample_emitter
 from ..sampling.rng import path_key, uniform
 from ..sampling.warp import sample_concentric_disk
@@ -141,7 +146,8 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
     one), the pdf (solid angle times selection probability; for delta lights
     just the selection probability), the delta flag, and the shadow ray from
     the offset origin s: unit direction, maximum distance and the light's own
-    primitive to ignore (-1 if none).  pdf == 0: no contribution.
+    primitive to ignore (-1 if none), and the index of the chosen light in
+    the light table.  pdf == 0: no contribution.
     """
     li = alias_select(L.alias_prob, L.alias_index, u_sel)
     pmf = L.light_pmf[li]
@@ -154,13 +160,13 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
         qx, qy, qz, mx, my, mz, pdf_dir = sample_emitter(lk, g, S.prim_area[lp], mode,
                                                          x, y, z, u1, u2)
         if not (pdf_dir > 0.0) or math.isinf(pdf_dir):
-            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
         wx = qx - x
         wy = qy - y
         wz = qz - z
         dist = math.sqrt(wx * wx + wy * wy + wz * wz)
         if not (dist > 0.0):
-            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
         wx /= dist
         wy /= dist
         wz /= dist
@@ -168,7 +174,7 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
         lobj = S.prim_object[lp]
         if not front:
             if S.obj_emits_both_sides[lobj] != 1:
-                return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+                return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
             # a sphere hides its far side from an outside point; judged from the
             # offset origin, so that a point on the sphere itself counts as being
             # on the side its shading normal faces
@@ -177,14 +183,14 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
                 cy = sy - g[1]
                 cz = sz - g[2]
                 if cx * cx + cy * cy + cz * cz > g[3] * g[3]:
-                    return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+                    return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
         em = S.obj_emission[lobj]
         sdx = qx - sx
         sdy = qy - sy
         sdz = qz - sz
         sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
         return (wx, wy, wz, em[0], em[1], em[2], pmf * pdf_dir, False,
-                sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), lp)
+                sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), lp, li)
     if ltype == LIGHT_POINT:
         wx = ld[0] - x
         wy = ld[1] - y
@@ -192,13 +198,13 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
         d2 = wx * wx + wy * wy + wz * wz
         dist = math.sqrt(d2)
         if not (dist > 0.0):
-            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
         sdx = ld[0] - sx
         sdy = ld[1] - sy
         sdz = ld[2] - sz
         sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
         return (wx / dist, wy / dist, wz / dist, ld[3] / d2, ld[4] / d2, ld[5] / d2, pmf, True,
-                sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), -1)
+                sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), -1, li)
     if ltype == LIGHT_SPOT:
         wx = ld[0] - x
         wy = ld[1] - y
@@ -206,41 +212,87 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
         d2 = wx * wx + wy * wy + wz * wz
         dist = math.sqrt(d2)
         if not (dist > 0.0):
-            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
         wx /= dist
         wy /= dist
         wz /= dist
         fall = spot_factor(ld, -wx, -wy, -wz, dist)
         if not (fall > 0.0):
-            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
         sdx = ld[0] - sx
         sdy = ld[1] - sy
         sdz = ld[2] - sz
         sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
         fall /= d2
         return (wx, wy, wz, ld[3] * fall, ld[4] * fall, ld[5] * fall, pmf, True,
-                sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), -1)
+                sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), -1, li)
     if ltype == LIGHT_DIRECTIONAL:
         return (-ld[0], -ld[1], -ld[2], ld[3], ld[4], ld[5], pmf, True,
-                -ld[0], -ld[1], -ld[2], math.inf, -1)
+                -ld[0], -ld[1], -ld[2], math.inf, -1, li)
     wx, wy, wz, pdf_e, er, eg, eb = env_sample(L.env, L.env_image, L.env_pmf, L.env_marg,
                                                L.env_cond, u1, u2)
     if not (pdf_e > 0.0):
-        return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1
+        return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
     return (wx, wy, wz, er, eg, eb, pmf * pdf_e, False,
-            wx, wy, wz, math.inf, -1)
+            wx, wy, wz, math.inf, -1, li)
+
+
+#: lay_misc entries: [0] 1 if any layer is on, [1] slot of the environment's
+#: light group (-1: none), [2] first of the auxiliary slots (-1: none)
+LAY_ON = 0
+LAY_ENV = 1
+LAY_AUX = 2
+LAY_MISC_LEN = 3
+#: auxiliary slots from lay_misc[LAY_AUX]: normal, position, depth (channel 0),
+#: albedo (directional-hemispherical reflectance estimate of the first hit)
+AUX_NORMAL = 0
+AUX_POSITION = 1
+AUX_DEPTH = 2
+AUX_ALBEDO = 3
+AUX_SLOTS = 4
+
+
+@inline
+def add_layers(lay, lay_depth, gslot, k, cr, cg, cb):
+    """Add one contribution (scattering count k, light-group slot gslot) to the
+    decomposition slots: one slot per kind of lay_depth rows, and the group."""
+    nk = lay_depth.shape[0]
+    if nk > 0:
+        kk = min(k, lay_depth.shape[1] - 1)
+        for j in range(nk):
+            sl = lay_depth[j, kk]
+            lay[sl, 0] += cr
+            lay[sl, 1] += cg
+            lay[sl, 2] += cb
+    if gslot >= 0:
+        lay[gslot, 0] += cr
+        lay[gslot, 1] += cg
+        lay[gslot, 2] += cb
 
 
 @kernel
 def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, timed,
-               stack, mscratch):
+               stack, mscratch, lay, lay_depth, lay_obj, lay_light, lay_misc):
     """One camera sample.  Returns (r, g, b, rays traced, cycles in traversal).
 
     ``stack`` (new_stack) and ``mscratch`` (material row with textures
     applied) are scratch space reused across paths.  With ``timed`` the CPU
     cycles spent in closest_hit/occluded are counted (for the traversal
-    share in the render statistics; never in the image)."""
+    share in the render statistics; never in the image).
+
+    Layers (with ``lay_misc[LAY_ON]``): ``lay`` (slots, 3) is zeroed and
+    receives every contribution of the path split by scattering count
+    (``lay_depth[kind, min(k, K)]`` is the slot of count k in each kind) and by
+    light group (``lay_obj[object]`` for emission found by a ray,
+    ``lay_light[light]`` for next-event estimation, ``lay_misc[LAY_ENV]`` for
+    the environment on escape; -1 = no group layer), plus the auxiliary
+    first-hit values.  The beauty (r, g, b) is computed exactly as without
+    layers."""
     tcyc = 0
+    lay_on = lay_misc[LAY_ON] == 1
+    aux = lay_misc[LAY_AUX]
+    if lay_on:
+        lay[:, :] = 0.0
     # np.int64(): a constant argument would compile one specialisation per value
     ox, oy, oz, dx, dy, dz = camera_ray(cam, px, py, uniform(key, np.int64(2)),
                                         uniform(key, np.int64(3)))
@@ -284,6 +336,9 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
                 lr += tr * er * w
                 lg += tg * eg * w
                 lb += tb * eb * w
+                if lay_on:
+                    add_layers(lay, lay_depth, lay_misc[LAY_ENV], depth,
+                               tr * er * w, tg * eg * w, tb * eb * w)
             break
         kind = S.prim_type[prim]
         g = S.prim_geom[prim]
@@ -298,6 +353,16 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
                 tr *= math.exp(-ap[ABSORPTION] * t)
                 tg *= math.exp(-ap[ABSORPTION + 1] * t)
                 tb *= math.exp(-ap[ABSORPTION + 2] * t)
+        if lay_on and aux >= 0 and depth == 0:
+            a = aux + AUX_NORMAL
+            lay[a, 0] = nx
+            lay[a, 1] = ny
+            lay[a, 2] = nz
+            a = aux + AUX_POSITION
+            lay[a, 0] = x
+            lay[a, 1] = y
+            lay[a, 2] = z
+            lay[aux + AUX_DEPTH, 0] = t
         # emission
         em = S.obj_emission[obj]
         if (em[0] > 0.0 or em[1] > 0.0 or em[2] > 0.0) and (cos_in < 0.0 or S.obj_emits_both_sides[obj] == 1):
@@ -312,6 +377,9 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
             lr += tr * em[0] * w
             lg += tg * em[1] * w
             lb += tb * em[2] * w
+            if lay_on:
+                add_layers(lay, lay_depth, lay_obj[obj] if lay_obj.shape[0] > 0 else -1, depth,
+                           tr * em[0] * w, tg * em[1] * w, tb * em[2] * w)
         if max_bounces >= 0 and depth >= max_bounces:
             break
         mat = S.obj_material[obj]
@@ -341,7 +409,7 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
         dim = DIMS_CAMERA + depth * DIMS_PER_VERTEX
         # ---- next-event estimation
         if n_lights > 0 and not bsdf_is_delta(mkind):
-            (wix, wiy, wiz, er, eg, eb, pdf_l, delta, sdx, sdy, sdz, smax, lp) = sample_light(
+            (wix, wiy, wiz, er, eg, eb, pdf_l, delta, sdx, sdy, sdz, smax, lp, li) = sample_light(
                 S, L, mode, x, y, z, sx, sy, sz, uniform(key, dim), uniform(key, dim + 1),
                 uniform(key, dim + 2))
             cos_i = wix * nx + wiy * ny + wiz * nz
@@ -383,6 +451,9 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
                     lr += tr * fr * er * c
                     lg += tg * fg * eg * c
                     lb += tb * fb * eb * c
+                    if lay_on:
+                        add_layers(lay, lay_depth, lay_light[li] if lay_light.shape[0] > 0 else -1,
+                                   depth + 1, tr * fr * er * c, tg * fg * eg * c, tb * fb * eb * c)
         # ---- continue the path by sampling the BSDF
         wix, wiy, wiz, fr, fg, fb, pdf_b, is_delta = bsdf_sample(
             mkind, mp, front, nx, ny, nz, wox, woy, woz, uniform(key, dim + 3),
@@ -390,6 +461,11 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
         if not (pdf_b > 0.0):
             break
         cos_i = abs(wix * nx + wiy * ny + wiz * nz)
+        if lay_on and aux >= 0 and depth == 0:
+            a = aux + AUX_ALBEDO
+            lay[a, 0] = fr * cos_i / pdf_b
+            lay[a, 1] = fg * cos_i / pdf_b
+            lay[a, 2] = fb * cos_i / pdf_b
         tr *= fr * cos_i / pdf_b
         tg *= fg * cos_i / pdf_b
         tb *= fb * cos_i / pdf_b
@@ -432,11 +508,15 @@ TIME_EVERY = 16
 @kernel
 def render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                 x0, y0, x1, y1, width, first_sample, n_samples, row_order, lo, hi,
-                acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time):
+                acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time,
+                filt, fcdf, fpdf, lay_depth, lay_obj, lay_light, lay_misc, acc_lsum, acc_lsq):
     """Add samples first_sample .. first_sample + n_samples - 1 of every pixel
     of rows ``row_order[lo:hi]`` (see render_pass)."""
     stack = new_stack()                          # scratch of every path of these rows
     mscratch = np.empty(S.mat_params.shape[1])
+    n_slots = acc_lsum.shape[2]
+    lay = np.zeros((n_slots, 3))
+    square = filt[5] == 1.0                      # box of radius 0.5: the historical path
     for ii in range(lo, hi):
         r = row_order[ii]
         yy = y0 + r
@@ -447,15 +527,30 @@ def render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
             pixel = yy * width + xx
             for s in range(first_sample, first_sample + n_samples):
                 key = path_key(seed, pixel, s)
-                px = xx + uniform(key, np.int64(0))   # (see trace_path)
-                py = yy + uniform(key, np.int64(1))
+                wgt = 1.0
+                if square:
+                    px = xx + uniform(key, np.int64(0))   # (see trace_path)
+                    py = yy + uniform(key, np.int64(1))
+                else:
+                    # filter importance sampling: offsets from the pixel centre drawn
+                    # from the filter, weight f / (p * integral of f) per axis
+                    ox, wx = filter_offset(filt, fcdf, fpdf, uniform(key, np.int64(0)))
+                    oy, wy = filter_offset(filt, fcdf, fpdf, uniform(key, np.int64(1)))
+                    px = xx + 0.5 + ox
+                    py = yy + 0.5 + oy
+                    wgt = wx * wy
                 # one path in TIME_EVERY is timed (cycles of the whole path and
                 # of its traversal calls) for the traversal share
                 timed = (pixel + s) % TIME_EVERY == 0
                 if timed:
                     p0 = cycles()
                 vr, vg, vb, nr, tc = trace_path(S, L, cam, key, px, py, max_bounces, rr_start,
-                                                strategy, mode, timed, stack, mscratch)
+                                                strategy, mode, timed, stack, mscratch,
+                                                lay, lay_depth, lay_obj, lay_light, lay_misc)
+                if not square:
+                    vr *= wgt
+                    vg *= wgt
+                    vb *= wgt
                 if timed:
                     row_time[r, 0] += cycles() - p0
                     row_time[r, 1] += tc
@@ -468,6 +563,11 @@ def render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                     acc_sq[r, c, 1] += vg * vg
                     acc_sq[r, c, 2] += vb * vb
                     acc_n[r, c] += 1
+                    for sl in range(n_slots):
+                        for ch in range(3):
+                            v = lay[sl, ch] * wgt
+                            acc_lsum[r, c, sl, ch] += v
+                            acc_lsq[r, c, sl, ch] += v * v
                 else:
                     bad += 1
         row_rays[r] += rays
@@ -478,7 +578,8 @@ def render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
 @kernel(parallel=True)
 def render_pass(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                 x0, y0, x1, y1, width, first_sample, n_samples, row_order,
-                acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time):
+                acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time,
+                filt, fcdf, fpdf, lay_depth, lay_obj, lay_light, lay_misc, acc_lsum, acc_lsq):
     """Add samples first_sample .. first_sample + n_samples - 1 of every pixel.
 
     Each row of the window is one independent work item; inside it, pixels and
@@ -489,6 +590,10 @@ def render_pass(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
     the CPU cycles of the timed paths (one in TIME_EVERY) and of their
     traversal calls, for ``stats["traversal_share"]``.
 
+    ``filt``/``fcdf``/``fpdf``: the pixel filter (sampling/filters.py).
+    ``acc_lsum``/``acc_lsq`` (h, w, slots, 3): sums and sums of squares of the
+    layer slots (see trace_path), weighted like the beauty sample.
+
     The parallel loop only calls the separately compiled render_rows, so it
     is small and quick to compile (a parallel loop around the whole path
     tracer took seconds more); numba's own threads run it (measured faster
@@ -498,5 +603,6 @@ def render_pass(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
     for ii in prange(row_order.shape[0]):
         render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                     x0, y0, x1, y1, width, first_sample, n_samples, row_order, ii, ii + 1,
-                    acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time)
+                    acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time,
+                    filt, fcdf, fpdf, lay_depth, lay_obj, lay_light, lay_misc, acc_lsum, acc_lsq)
     return 0

@@ -6,7 +6,10 @@ which is lossless):
 * channels ``R``, ``G``, ``B``: mean linear radiance, float32, W m^-2 sr^-1;
 * channels ``variance.R``, ``variance.G``, ``variance.B`` (optional): the
   per-pixel variance of that mean, float32, (W m^-2 sr^-1)^2;
-* optional extra layers ``<name>.R/G/B``;
+* optional extra layers ``<name>.R/G/B`` (names may be dotted, e.g.
+  ``light.window`` and ``light.window.variance``) and single channels;
+* the standard attribute ``chromaticities`` (CIE xy of the R, G, B primaries
+  and the white point) naming the colour space of the RGB values;
 * header attribute ``refrender``: the whole metadata dict as one JSON string;
 * header attributes ``refrender.<key>``: each top-level metadata value as a
   string (a string value as itself, anything else as JSON), for people who
@@ -43,6 +46,8 @@ EXR_MAGIC = b"\x76\x2f\x31\x01"
 #: Header attribute holding the metadata dict as JSON.
 METADATA_ATTRIBUTE = "refrender"
 _RGB = ("R", "G", "B")
+#: ITU-R BT.709 primaries and D65 white (CIE 1931 xy), the OpenEXR default
+REC709_CHROMATICITIES = (0.64, 0.33, 0.30, 0.60, 0.15, 0.06, 0.3127, 0.3290)
 
 
 def _import_openexr():
@@ -89,6 +94,8 @@ def write_exr(
     metadata: Mapping[str, Any] | None = None,
     *,
     layers: Mapping[str, np.ndarray] | None = None,
+    channels: Mapping[str, np.ndarray] | None = None,
+    chromaticities: tuple | None = None,
 ) -> None:
     """Write a render to an OpenEXR file, atomically.
 
@@ -108,7 +115,12 @@ def write_exr(
         attribute ``refrender.<key>``.  Tuples read back as lists.
     layers : dict of str to array_like (H, W, 3), optional
         Extra float32 layers, stored as ``<name>.R``, ``<name>.G``, ``<name>.B``.
-        Names must not be ``variance`` or contain ``.``.
+        Names must not be ``variance``; dotted names nest (``light.window``).
+    channels : dict of str to array_like (H, W), optional
+        Extra single float32 channels by full name (``depth.Z``).
+    chromaticities : 8 floats, optional
+        CIE xy of red, green, blue and white for the standard ``chromaticities``
+        attribute; default: ITU-R BT.709 primaries with D65 (linear Rec. 709).
 
     Raises
     ------
@@ -117,12 +129,14 @@ def write_exr(
         written (one line; the target is untouched).
     """
     OpenEXR = _import_openexr()
+    extra = channels
     mean32 = _as_float32_image("mean", mean, None)
     stacks: dict[str, np.ndarray] = {"": mean32}
     if variance is not None:
         stacks["variance"] = _as_float32_image("variance", variance, mean32.shape)
     for name, arr in (layers or {}).items():
-        if not isinstance(name, str) or not name or "." in name or name in stacks:
+        if (not isinstance(name, str) or not name or name in stacks or name in _RGB
+                or any(not part for part in name.split("."))):
             raise ImageError(f"write_exr: invalid or duplicate layer name {name!r}")
         stacks[name] = _as_float32_image(f"layer {name!r}", arr, mean32.shape)
 
@@ -131,10 +145,17 @@ def write_exr(
         for i, c in enumerate(_RGB):
             # Separate C-contiguous 2-D arrays: OpenEXR writes non-contiguous views wrongly.
             channels[f"{prefix}.{c}" if prefix else c] = np.ascontiguousarray(stack[..., i])
+    for name, arr in (extra or {}).items():
+        a = np.asarray(arr)
+        if (not isinstance(name, str) or name in channels or a.shape != mean32.shape[:2]
+                or a.dtype.kind not in "fiu"):
+            raise ImageError(f"write_exr: invalid or duplicate channel {name!r}")
+        channels[name] = np.ascontiguousarray(a, dtype=np.float32)
 
     header: dict[str, Any] = {
         "compression": OpenEXR.ZIP_COMPRESSION,
         "type": OpenEXR.scanlineimage,
+        "chromaticities": tuple(float(v) for v in (chromaticities or REC709_CHROMATICITIES)),
     }
     header.update(_metadata_attributes(metadata or {}))
 
@@ -185,6 +206,12 @@ class ExrImage:
     def layer(self, name: str) -> np.ndarray:
         """Channels ``<name>.R/G/B`` as an (H, W, 3) array, e.g. ``layer("variance")``."""
         return self._stack([f"{name}.{c}" for c in _RGB], f"layer {name!r}")
+
+    @property
+    def chromaticities(self) -> tuple | None:
+        """The standard ``chromaticities`` attribute (8 floats), or None if absent."""
+        c = self.header.get("chromaticities")
+        return None if c is None else tuple(float(v) for v in c)
 
     def layers(self) -> list[str]:
         """Sorted names of the dotted layers that have all of R, G and B."""

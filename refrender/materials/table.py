@@ -70,7 +70,7 @@ def material_row(mat, textures: list) -> tuple[int, np.ndarray]:
     return TYPE_CODES[kind], row
 
 
-def material_table(materials: dict):
+def material_table(materials: dict, color_space: str = "linear_rec709"):
     """name -> row index, mat_type (q,), mat_params (q, MAT_PARAMS), tex_info, tex_data.
 
     Row 0 is black (objects without a material)."""
@@ -80,7 +80,7 @@ def material_table(materials: dict):
     textures: list = []
     for i, name in enumerate(names, start=1):
         mat_type[i], params[i] = material_row(materials[name], textures)
-    tex_info, tex_data = pack_textures(textures)
+    tex_info, tex_data = pack_textures(textures, color_space)
     index = {name: i for i, name in enumerate(names, start=1)}
     return index, mat_type, params, tex_info, tex_data
 

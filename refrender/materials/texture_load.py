@@ -29,6 +29,8 @@ class Texture:
     offset: tuple = (0.0, 0.0)
     channel: int = 0
     source: str = field(default="")
+    colour: bool = False            # a colour (RGB) parameter, converted to the working space
+    encoding: str = "linear"        # "srgb": decoded from an 8-bit sRGB file, linear Rec. 709
 
 
 def load_texture(spec: dict, path: tuple, files, colour: bool) -> Texture:
@@ -69,17 +71,31 @@ def load_texture(spec: dict, path: tuple, files, colour: bool) -> Texture:
     if common["channel"] >= img.shape[2]:
         raise scene_error(path + ("channel",), f"{common['channel']} is out of range: {resolved} "
                           f"has {img.shape[2]} channel(s)")
+    encoding = "srgb" if str(resolved).lower().endswith((".png", ".jpg", ".jpeg")) else "linear"
     return Texture(kind="image", data=np.ascontiguousarray(img, dtype=np.float32),
-                   source=str(resolved), **common)
+                   source=str(resolved), colour=colour, encoding=encoding, **common)
 
 
-def pack_textures(textures: list[Texture]) -> tuple[np.ndarray, np.ndarray]:
+def working_texels(tex: Texture, color_space: str) -> np.ndarray:
+    """Texels in the working space: sRGB-decoded colour images (linear Rec. 709)
+    are converted by the 3x3 matrix of refrender.color; others are as given."""
+    if (color_space == "linear_rec709" or tex.kind != "image" or not tex.colour
+            or tex.encoding != "srgb" or tex.data.shape[2] < 3):
+        return tex.data
+    from ..color import conversion
+    m = conversion("linear_rec709", color_space)
+    out = np.array(tex.data, dtype=np.float64)
+    out[..., :3] = out[..., :3] @ m.T
+    return out.astype(np.float32)
+
+
+def pack_textures(textures: list[Texture], color_space: str = "linear_rec709") -> tuple[np.ndarray, np.ndarray]:
     """(tex_info (T, TEX_INFO) float64, tex_data float32) of a list of textures."""
     info = np.zeros((max(len(textures), 1), TEX_INFO))
     chunks = []
     offset = 0
     for t, tex in enumerate(textures):
-        flat = np.ascontiguousarray(tex.data, dtype=np.float32).ravel()
+        flat = np.ascontiguousarray(working_texels(tex, color_space), dtype=np.float32).ravel()
         row = info[t]
         row[0] = TEX_CHECKER if tex.kind == "checker" else TEX_IMAGE
         row[1] = offset

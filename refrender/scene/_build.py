@@ -144,7 +144,9 @@ def build_film(spec: dict) -> Film:
         raise scene_error(("film",), f"too large: {width} x {height} = {width * height} pixels, "
                           f"at most {MAX_PIXELS} (2**28)")
     crop = _check_crop(spec["crop"], width, height) if "crop" in spec else None
-    return Film(width=width, height=height, crop=crop)
+    from ..sampling.filters import resolve
+    name, params = resolve(spec.get("filter", "box"))
+    return Film(width=width, height=height, crop=crop, filter=name, filter_params=params)
 
 
 # ----------------------------------------------------------------------------- materials, objects
@@ -269,6 +271,7 @@ def build_objects(specs: list, materials: dict, files: FileLog, imported: dict |
             material=_material_name(spec, path, materials),
             emission=vec3(spec.get("emission", [0.0, 0.0, 0.0])),
             emits_both_sides=bool(spec.get("emits_both_sides", False)),
+            group=str(spec.get("group", "default")),
         ))
     return objects
 
@@ -278,10 +281,12 @@ def build_objects(specs: list, materials: dict, files: FileLog, imported: dict |
 def _light(spec: dict, path: tuple, files: FileLog | None = None) -> Light:
     kind = spec["type"]
     if kind == "point":
-        return PointLight(position=vec3(spec["position"]), intensity=vec3(spec["intensity"]))
+        return PointLight(position=vec3(spec["position"]), intensity=vec3(spec["intensity"]),
+                          group=str(spec.get("group", "default")))
     if kind == "directional":
         return DirectionalLight(direction=unit(spec["direction"], path + ("direction",)),
-                                irradiance=vec3(spec["irradiance"]))
+                                irradiance=vec3(spec["irradiance"]),
+                                group=str(spec.get("group", "default")))
     return _environment(spec, path, files)
 
 
@@ -344,4 +349,6 @@ def build_render(spec: dict) -> RenderSettings:
         rr_start=int(spec.get("rr_start", defaults.rr_start)),
         strategy=spec.get("strategy", defaults.strategy),
         light_sampling=spec.get("light_sampling", defaults.light_sampling),
+        color_space=spec.get("color_space", defaults.color_space),
+        layers=tuple(spec.get("layers", defaults.layers)),
     )

@@ -40,6 +40,8 @@ class Film:
     width: int
     height: int
     crop: tuple[int, int, int, int] | None = None   # [x0, y0, x1, y1), pixels
+    filter: str = "box"             # pixel filter (refrender.sampling.filters.FILTERS)
+    filter_params: dict = field(default_factory=lambda: {"radius": 0.5})
 
     @property
     def window(self) -> tuple[int, int, int, int]:
@@ -90,18 +92,21 @@ class Object:
     material: str | None            # key into Scene.materials; None = black
     emission: np.ndarray            # (3,) radiance W m^-2 sr^-1
     emits_both_sides: bool = False
+    group: str = "default"          # light group of the emission
 
 
 @dataclass(frozen=True)
 class PointLight:
     position: np.ndarray
     intensity: np.ndarray           # (3,) W sr^-1
+    group: str = "default"
 
 
 @dataclass(frozen=True)
 class DirectionalLight:
     direction: np.ndarray           # unit, the way the light travels
     irradiance: np.ndarray          # (3,) W m^-2 on a surface facing the light
+    group: str = "default"
 
 
 @dataclass(frozen=True, eq=False)
@@ -126,6 +131,7 @@ class SpotLight:
     cos_outer: float
     cone: bool = True
     range: float = float("inf")     # no effect at distances >= range (inf: no window)
+    group: str = "default"          # light group (for light-group layers)
 
 
 Light = PointLight | DirectionalLight | EnvironmentLight | SpotLight
@@ -139,6 +145,8 @@ class RenderSettings:
     rr_start: int = 3
     strategy: str = "mis"           # "mis" | "nee" | "bsdf"
     light_sampling: str = "solid_angle"   # "solid_angle" | "area"
+    color_space: str = "linear_rec709"    # working space (refrender.color.SPACES)
+    layers: tuple = ()                    # layer requests (refrender.layers)
 
 
 @dataclass(frozen=True)
