@@ -76,7 +76,8 @@ def _render_task(payload: bytes, digest: str, settings: dict, start: int, stop: 
     scene = pickle.loads(payload)
     res = render(scene, spp=stop - start, first_sample=start, threads=threads, **settings)
     return {"range": (start, stop), "sum": res.sum, "sum_sq": res.sum_sq, "count": res.count,
-            "meta": res.meta, "stats": res.stats, "pid": os.getpid()}
+            "meta": res.meta, "stats": res.stats, "pid": os.getpid(),
+            "layer_sum": res.layer_sum, "layer_sq": res.layer_sq, "ids": res.ids}
 
 
 def local_cluster(n_workers: int, *, threads_per_worker: int = 1):
@@ -109,7 +110,7 @@ def connect(address: str):
 
 def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
                 max_bounces=_UNSET, rr_start=None, strategy=None, light_sampling=None,
-                task_spp: int | None = None, threads_per_task: int | None = None,
+                color_space=None, layers=None, task_spp: int | None = None, threads_per_task: int | None = None,
                 done: Result | None = None, progress=None, on_task=None,
                 should_stop=None, retries: int = 3) -> Result:
     """Render on the workers of ``client``; returns the merged Result.
@@ -137,11 +138,13 @@ def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
     or the reason from ``should_stop``, and ``complete``.
     """
     from distributed import as_completed
-    over = dict(seed=seed, rr_start=rr_start, strategy=strategy, light_sampling=light_sampling)
+    over = dict(seed=seed, rr_start=rr_start, strategy=strategy, light_sampling=light_sampling,
+                color_space=color_space, layers=layers)
     if max_bounces is not _UNSET:
         over["max_bounces"] = max_bounces
     st = resolve_settings(scene, spp=spp, **over)
     settings = {k: st[k] for k in ("seed", "max_bounces", "rr_start", "strategy", "light_sampling")}
+    extra = {"color_space": st["color_space"], "layers": list(st["layers"])}
     n_workers = max(1, len(client.scheduler_info().get("workers", {})))
     task_spp = task_spp or default_task_spp(st["spp"], n_workers)
     ranges = split_range(first_sample, st["spp"], task_spp)
@@ -162,7 +165,8 @@ def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
         # while the scheduler still released the first copy, and its tasks were
         # cancelled for "lost dependencies" (seen in the resume test)
         remote = client.scatter(payload, broadcast=True, hash=False)
-        futures = [client.submit(_render_task, remote, digest, settings, a, b, threads_per_task,
+        futures = [client.submit(_render_task, remote, digest, dict(settings, **extra), a, b,
+                                 threads_per_task,
                                  key=f"refrender-{digest[:16]}-{st['seed']}-{a}-{b}",
                                  pure=False, retries=retries) for a, b in ranges]
         rays = 0
@@ -172,7 +176,9 @@ def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
             key = tuple(r["range"])
             if key in parts:           # a re-run of a range that already arrived
                 continue
-            parts[key] = Result(r["sum"], r["sum_sq"], r["count"], [key], r["meta"], r["stats"])
+            parts[key] = Result(r["sum"], r["sum_sq"], r["count"], [key], r["meta"], r["stats"],
+                                layer_sum=r.get("layer_sum"), layer_sq=r.get("layer_sq"),
+                                ids=r.get("ids"))
             rays += int(r["stats"]["rays"])
             if progress is not None:
                 progress(len(parts), len(ranges), rays, time.perf_counter() - t0)

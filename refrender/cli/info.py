@@ -38,6 +38,10 @@ def describe(path: Path) -> dict:
     img = read_exr(path)
     info = dict(img.metadata)
     info["file"] = str(path)
+    info["channels"] = sorted(img.channels)
+    from ..color import space_of
+    info["chromaticities"] = (space_of(img.chromaticities) or list(img.chromaticities)
+                              if img.chromaticities is not None else None)
     info["size"] = [int(img.shape[1]), int(img.shape[0])]
     if "variance" in img.layers():
         info["noise"] = _noise(img.rgb().astype(np.float64), img.layer("variance").astype(np.float64))
@@ -95,8 +99,19 @@ def run(args) -> int:
     run_info = info.pop("run", {}) or {}
     checks = run_info.pop("error_checks", None)
     reason = run_info.pop("stop_reason", None)   # shown as 'stop_reason' and 'stopped by'
+    channels = info.pop("channels", None)
+    slots = info.get("layer_slots")
     for key in sorted(info):
         print(f"{key:>{W}}: {info[key]}")
+    if channels is not None:
+        groups = {}
+        for ch in channels:
+            layer, _, name = ch.rpartition(".")
+            groups.setdefault(layer or "(beauty)", []).append(name)
+        print(f"{'layers':>{W}}: " + ", ".join(f"{k} ({''.join(v) if all(len(c) == 1 for c in v) else ','.join(v)})"
+                                              for k, v in sorted(groups.items())))
+    elif slots:
+        print(f"{'layers':>{W}}: {', '.join(slots)}")
     rows = []
     _flat("stats.", stats, rows)
     _flat("run.", run_info, rows)

@@ -56,6 +56,12 @@ def add_parser(sub) -> None:
     p.add_argument("--rr-start", type=int, help="bounce from which Russian roulette may end a path")
     p.add_argument("--strategy", choices=["mis", "nee", "bsdf"])
     p.add_argument("--light-sampling", choices=["solid_angle", "area"])
+    p.add_argument("--color-space", choices=["linear_rec709", "acescg", "linear_p3_d65", "cie_xyz"],
+                   help="working colour space of the scene's RGB values and of the output "
+                        "(default: render.color_space, else linear_rec709)")
+    p.add_argument("--layers", metavar="LIST",
+                   help="comma-separated layers beside the beauty: albedo, normal, depth, position, "
+                        "object_id, material_id, transport, bounces[:N], light_groups")
     p.add_argument("--threads", type=int, help="worker threads (default: all cores)")
     farm = p.add_argument_group("farm renders (Dask distributed)")
     farm.add_argument("--cluster", metavar="ADDRESS",
@@ -147,7 +153,9 @@ def _previous(state: Path, args):
 def _settings(args, prev):
     """Keyword overrides of render(): the options given, else (resuming) the checkpoint's."""
     overrides = dict(seed=args.seed, rr_start=args.rr_start, strategy=args.strategy,
-                     light_sampling=args.light_sampling)
+                     light_sampling=args.light_sampling,
+                     color_space=getattr(args, "color_space", None),
+                     layers=getattr(args, "layers", None))
     if args.max_bounces is not None:
         overrides["max_bounces"] = _max_bounces(args.max_bounces)
     first = args.first_sample
@@ -156,6 +164,10 @@ def _settings(args, prev):
             if overrides[key] is None:
                 overrides[key] = prev.meta[key]
         overrides.setdefault("max_bounces", prev.meta["max_bounces"])
+        if overrides["color_space"] is None:
+            overrides["color_space"] = prev.meta.get("color_space", "linear_rec709")
+        if overrides["layers"] is None:
+            overrides["layers"] = list(prev.meta.get("layers", []))
         if first is None:
             first = prev.sample_ranges[0][0]
     budget = dict(spp=args.spp, time_limit=None, target_error=args.target_error,

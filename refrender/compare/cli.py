@@ -36,6 +36,12 @@ def parser() -> argparse.ArgumentParser:
                    help="exit 1 if COND holds, e.g. 'relmse>0.01', 'psnr.R<30', 'bias_z>4', 'significant' "
                    "(repeatable; metric[.R|.G|.B|.Y] OP value, Y by default)")
     p.add_argument("--quiet", action="store_true", help="print only failed conditions and errors")
+    p.add_argument("--explain", action="store_true",
+                   help="explain the difference by the reference's light-transport layers (weighted "
+                   "least-squares weight of each layer with its standard error)")
+    p.add_argument("--convert", action="store_true",
+                   help="convert a test frame whose colour space (OpenEXR chromaticities) differs "
+                   "from the reference's, instead of refusing it")
     return p
 
 
@@ -63,10 +69,19 @@ def run(args) -> int:
     ref = load_frame(args.reference, layer=args.reference_layer)
     test = load_frame(args.test, layer=args.layer, channels=args.channels)
     check_sizes(ref, test)
+    from .faults import reconcile_spaces
+    test = reconcile_spaces(ref, test, convert=args.convert)
     crop = parse_crop(args.crop, ref.rgb.shape) if args.crop else None
     mask = load_mask(args.mask, ref.rgb.shape) if args.mask else None
     rep = compare(ref, test, mask=mask, crop=crop, tolerance=args.tolerance, eps=args.eps, peak=args.peak,
                   exposure=args.exposure, grid=(gy, gx))
+    explanation = None
+    if args.explain:
+        from .explain import explain_frames, format_explanation
+        if not str(args.reference).lower().endswith(".exr"):
+            raise CompareError("--explain: the reference must be a refrender EXR with layers")
+        rep["explanation"] = explain_frames(args.reference, test, mask=mask, crop=crop)
+        explanation = format_explanation(rep["explanation"])
     failed = failed_conditions(rep, args.fail_if)
     rep["gating"] = {"conditions": list(args.fail_if), "failed": failed}
     if args.json:
@@ -82,6 +97,8 @@ def run(args) -> int:
         page = write_report(args.report, rep, r, t, vr, vt, exposure=args.exposure)
     if not args.quiet:
         print(table(rep))
+        if explanation:
+            print(explanation)
         if args.report:
             print(f"report: {page}")
     for f in failed:

@@ -279,6 +279,10 @@ def diagnose(reference, test, var_ref=None, var_test=None, *, mask=None) -> list
             consider("clamp", c, np.minimum(r, c),
                      f"test values are clipped at {c:.4g} ({n_at} values, {frac:.2%}); "
                      f"the reference goes up to {float(r[fit.sel3].max()):.4g}")
+    # --- reconstruction filter wider than the reference's, and working colour space
+    from .faults import consider_blur, consider_color_space
+    consider_blur(consider, r, fit, sel)
+    consider_color_space(consider, r, t, fit)
     # rank by the residual left (excess chi2 over the noise expectation); a model that
     # leaves more than twice the best one's residual (and 25 more) is a side effect of it
     cands.sort(key=lambda c: c["_excess"])

@@ -22,6 +22,9 @@ class Frame:
     path: str = ""
     source: str = ""
     metadata: dict = field(default_factory=dict)
+    #: the OpenEXR ``chromaticities`` (8 floats) of the file, None if absent
+    #: (OpenEXR then means Rec. 709 primaries with D65)
+    chromaticities: tuple | None = None
 
 
 def _as_rgb(arr: np.ndarray, path) -> np.ndarray:
@@ -73,7 +76,8 @@ def load_frame(path, *, layer: str | None = None, channels: str | None = None,
         var = None
         if names == ["R", "G", "B"] and variance_layer in img.layers():
             var = img.layer(variance_layer).astype(np.float64)
-        return Frame(rgb, var, str(path), "EXR " + ",".join(names), dict(img.metadata))
+        return Frame(rgb, var, str(path), "EXR " + ",".join(names), dict(img.metadata),
+                     img.chromaticities)
     from ..io import read_image
     return Frame(_as_rgb(read_image(path), path), None, str(path), path.suffix.lower()[1:].upper())
 
