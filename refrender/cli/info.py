@@ -50,6 +50,23 @@ def describe(path: Path) -> dict:
     return info
 
 
+def layer_listing(channels) -> str:
+    """``beauty R,G,B (+variance); direct R,G,B (+variance); depth Z`` from channel names."""
+    order = {c: i for i, c in enumerate("RGBAXYZ")}
+    groups: dict = {}
+    for ch in channels:
+        layer, _, name = ch.rpartition(".")
+        groups.setdefault(layer or "beauty", []).append(name)
+    out = []
+    for layer in sorted(groups, key=lambda k: (k != "beauty", k)):
+        if layer.endswith(".variance") or layer == "variance":
+            continue
+        names = sorted(groups[layer], key=lambda c: (order.get(c, 99), c))
+        var = "variance" if layer == "beauty" else f"{layer}.variance"
+        out.append(f"{layer} {','.join(names)}" + (" (+variance)" if var in groups else ""))
+    return "; ".join(out)
+
+
 #: width of the key column
 W = 23
 
@@ -104,12 +121,7 @@ def run(args) -> int:
     for key in sorted(info):
         print(f"{key:>{W}}: {info[key]}")
     if channels is not None:
-        groups = {}
-        for ch in channels:
-            layer, _, name = ch.rpartition(".")
-            groups.setdefault(layer or "(beauty)", []).append(name)
-        print(f"{'layers':>{W}}: " + ", ".join(f"{k} ({''.join(v) if all(len(c) == 1 for c in v) else ','.join(v)})"
-                                              for k, v in sorted(groups.items())))
+        print(f"{'channels':>{W}}: {layer_listing(channels)}")
     elif slots:
         print(f"{'layers':>{W}}: {', '.join(slots)}")
     rows = []

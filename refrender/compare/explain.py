@@ -136,9 +136,11 @@ def fit_kind(test, var_test, layers, variances, sel, var_ref=None) -> dict:
         idx = np.nonzero(live)[0]
         cov[np.ix_(idx, idx)] = cl
     resid = T - A @ wts
-    vfull = (vt + vr)[sel].reshape(-1) + 1e-300
-    chi2 = float((resid * resid / (vfull + (1e-4 * scale) ** 2)).sum())
-    chi2_id = float(((T - A.sum(axis=1)) ** 2 / (vfull + (1e-4 * scale) ** 2)).sum())
+    # the diagnosis' floor: 0.1 % of the value (exactly known pixels such as emitters
+    # seen directly still carry float32 storage rounding) and 1e-4 of the mean level
+    vfull = (vt + vr)[sel].reshape(-1) + (1e-3 * A.sum(axis=1)) ** 2 + (1e-4 * scale) ** 2 + 1e-300
+    chi2 = float((resid * resid / vfull).sum())
+    chi2_id = float(((T - A.sum(axis=1)) ** 2 / vfull).sum())
     dof = max(T.size - int(live.sum()), 1)
     se = np.sqrt(np.maximum(np.diag(cov), 0.0))
     return {"weights": wts.tolist(), "standard_errors": se.tolist(), "chi2": chi2, "dof": dof,
