@@ -80,7 +80,7 @@ def _doc(color_space=None, texture=None):
            "camera": {"projection": "orthographic", "position": [0, 0, 1], "look_at": [0, 0, 0],
                       "up": [0, 1, 0], "view_height": 2.0},
            "film": {"width": 4, "height": 4},
-           "materials": {"m": {"type": "diffuse", "albedo": albedo}},
+           "materials": {"m": {"type": "lambertian", "albedo": albedo}},
            "objects": [{"shape": "rectangle", "origin": [-2, -2, 0], "edge1": [4, 0, 0],
                         "edge2": [0, 4, 0], "material": "m"}],
            "lights": [{"type": "environment", "radiance": [1, 1, 1]}],

@@ -29,8 +29,8 @@ LAYERS = ["transport", "bounces", "light_groups"]
 
 def _room(spp, seed):
     """A closed room (albedo 0.75) lit by a window panel and a lamp: much multiple scattering."""
-    wall = {"type": "diffuse", "albedo": [0.75, 0.72, 0.7]}
-    red = {"type": "diffuse", "albedo": [0.7, 0.2, 0.15]}
+    wall = {"type": "lambertian", "albedo": [0.75, 0.72, 0.7]}
+    red = {"type": "lambertian", "albedo": [0.7, 0.2, 0.15]}
     objs = [
         {"shape": "rectangle", "origin": [-1, 0, 1], "edge1": [2, 0, 0], "edge2": [0, 0, -2], "material": "wall"},
         {"shape": "rectangle", "origin": [-1, 2, -1], "edge1": [2, 0, 0], "edge2": [0, 0, 2], "material": "wall"},

@@ -40,8 +40,8 @@ def _doc(lamp=True, window=True, layers=("transport", "bounces", "light_groups")
             "camera": {"projection": "perspective", "position": [0, 1.0, 3.0], "look_at": [0, 0.7, 0],
                        "up": [0, 1, 0], "fov_y": 50},
             "film": {"width": 10, "height": 8},
-            "materials": {"floor": {"type": "diffuse", "albedo": [0.7, 0.6, 0.5]},
-                          "wall": {"type": "diffuse", "albedo": [0.5, 0.6, 0.7]}},
+            "materials": {"floor": {"type": "lambertian", "albedo": [0.7, 0.6, 0.5]},
+                          "wall": {"type": "lambertian", "albedo": [0.5, 0.6, 0.7]}},
             "objects": objects, "lights": lights,
             "render": {"spp": spp, "seed": 11, "layers": list(layers)}}
 
@@ -148,7 +148,7 @@ def test_first_hit_layers_of_an_orthographic_view(tmp_path):
            "camera": {"projection": "orthographic", "position": [0, 0, 1.5], "look_at": [0, 0, 0],
                       "up": [0, 1, 0], "view_height": 2.0},
            "film": {"width": 4, "height": 2},
-           "materials": {"m": {"type": "diffuse", "albedo": [0.25, 0.5, 0.75]}},
+           "materials": {"m": {"type": "lambertian", "albedo": [0.25, 0.5, 0.75]}},
            "objects": [{"shape": "rectangle", "origin": [-3, -3, 0], "edge1": [6, 0, 0],
                         "edge2": [0, 6, 0], "material": "m"}],
            "lights": [{"type": "environment", "radiance": [1, 1, 1]}],
