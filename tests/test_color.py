@@ -125,3 +125,18 @@ def test_srgb_textures_are_decoded_and_converted_to_the_working_space(tmp_path):
     # in the default space the texels are the decoded values themselves
     sc709 = refrender.load_scene(_doc(None, str(tmp_path / "t.png")))
     np.testing.assert_allclose(compile_scene(sc709).tex_data[:48].reshape(4, 4, 3), linear709, atol=1e-6)
+
+
+def test_a_texture_may_name_its_own_colour_space():
+    """A checker (or linear image) is in the working space unless it says otherwise."""
+    from refrender.geometry.compile import compile_scene
+    colours = [[0.2, 0.5, 0.8], [0.9, 0.1, 0.3]]
+    doc = _doc("acescg")
+    doc["materials"]["m"]["albedo"] = {"checker": colours}
+    plain = compile_scene(refrender.load_scene(doc)).tex_data[:6].reshape(2, 3)
+    np.testing.assert_allclose(plain, colours, atol=1e-7)
+    doc["materials"]["m"]["albedo"] = {"checker": colours, "color_space": "linear_rec709"}
+    got = compile_scene(refrender.load_scene(doc)).tex_data[:6].reshape(2, 3)
+    expected = colour.RGB_to_RGB(np.array(colours), _cs("linear_rec709"), _cs("acescg"),
+                                 chromatic_adaptation_transform="Bradford")
+    np.testing.assert_allclose(got, expected, atol=1e-6)

@@ -31,6 +31,8 @@ class Texture:
     source: str = field(default="")
     colour: bool = False            # a colour (RGB) parameter, converted to the working space
     encoding: str = "linear"        # "srgb": decoded from an 8-bit sRGB file, linear Rec. 709
+    color_space: str | None = None  # space of the linear values; None: Rec. 709 for sRGB files,
+                                    # else the working space
 
 
 def load_texture(spec: dict, path: tuple, files, colour: bool) -> Texture:
@@ -44,9 +46,11 @@ def load_texture(spec: dict, path: tuple, files, colour: bool) -> Texture:
                   scale=tuple(float(s) for s in spec.get("scale", [1.0, 1.0])),
                   offset=tuple(float(s) for s in spec.get("offset", [0.0, 0.0])),
                   channel=int(spec.get("channel", 0)))
+    space = spec.get("color_space")
     if "checker" in spec:
         data = np.array(spec["checker"], dtype=np.float32).reshape(2, 3)
-        return Texture(kind="checker", data=data, source="checker", **common)
+        return Texture(kind="checker", data=data, source="checker", colour=colour,
+                       color_space=space, **common)
     from ..io.images import PrecisionWarning, read_image
     where = path + ("texture",)
     resolved, _ = files.read(spec["texture"], where)
@@ -73,17 +77,20 @@ def load_texture(spec: dict, path: tuple, files, colour: bool) -> Texture:
                           f"has {img.shape[2]} channel(s)")
     encoding = "srgb" if str(resolved).lower().endswith((".png", ".jpg", ".jpeg")) else "linear"
     return Texture(kind="image", data=np.ascontiguousarray(img, dtype=np.float32),
-                   source=str(resolved), colour=colour, encoding=encoding, **common)
+                   source=str(resolved), colour=colour, encoding=encoding, color_space=space,
+                   **common)
 
 
 def working_texels(tex: Texture, color_space: str) -> np.ndarray:
-    """Texels in the working space: sRGB-decoded colour images (linear Rec. 709)
-    are converted by the 3x3 matrix of refrender.color; others are as given."""
-    if (color_space == "linear_rec709" or tex.kind != "image" or not tex.colour
-            or tex.encoding != "srgb" or tex.data.shape[2] < 3):
+    """Texels (checker colours) in the working space: a colour texture's values
+    are in ``tex.color_space`` (default: linear Rec. 709 for sRGB-decoded
+    files, else the working space) and converted by the 3x3 matrix of
+    refrender.color; scalar textures are as given."""
+    src = tex.color_space or ("linear_rec709" if tex.encoding == "srgb" else color_space)
+    if src == color_space or not tex.colour or tex.data.shape[-1] < 3:
         return tex.data
     from ..color import conversion
-    m = conversion("linear_rec709", color_space)
+    m = conversion(src, color_space)
     out = np.array(tex.data, dtype=np.float64)
     out[..., :3] = out[..., :3] @ m.T
     return out.astype(np.float32)
