@@ -145,7 +145,7 @@ def trend_svg(runs: list, case: str, metric: str = TREND_METRIC, n: int = TREND_
         coords.append((x, y, v, st, lab))
     line = " ".join(f"{x:.1f},{y:.1f}" for x, y, *_ in coords if y is not None)
     dots = "".join(
-        f'<circle cx="{x:.1f}" cy="{y:.1f}" r="2.2" class="dot-{html.escape(str(st))}">'
+        f'<circle cx="{x:.1f}" cy="{y:.1f}" r="2.6" class="dot-{html.escape(str(st))}">'
         f'<title>{html.escape(str(lab))}: {metric} {v:.4g} ({html.escape(str(st))})</title></circle>'
         for x, y, v, st, lab in coords if y is not None)
     title = f"{metric} over the last {len(pts)} run(s): min {lo:.3g}, max {hi:.3g}, now {vals[-1]:.3g}"
@@ -198,7 +198,7 @@ def _row(rec: dict, report_dir: Path, runs: list) -> str:
     if st == "error":
         verdict = f'<span class="msg">{html.escape(rec["message"])}</span>'
     else:
-        verdict = html.escape(rec["verdict"] or "")
+        verdict = "verdict: " + html.escape(rec["verdict"] or "")
         if rec["failed"]:
             verdict = "<b>gate: " + html.escape("; ".join(rec["failed"])) + "</b><br>" + verdict
         if rec["diagnoses"]:
@@ -246,7 +246,7 @@ table {{ border-collapse: collapse; font-size: 0.85em; }}
 th, td {{ padding: 0.25em 0.5em; border-bottom: 1px solid #ddd; vertical-align: top; text-align: left; }}
 th[data-key] {{ cursor: pointer; user-select: none; white-space: nowrap; }}
 th.asc::after {{ content: " \\25B2"; }} th.desc::after {{ content: " \\25BC"; }}
-td[data-v] {{ max-width: 28em; }} td ul {{ margin: 0.2em 0 0 1em; padding: 0; }}
+td[data-v] {{ max-width: 28em; }} td.verdict {{ min-width: 24em; max-width: 36em; }} td ul {{ margin: 0.2em 0 0 1em; padding: 0; }}
 img.thumb {{ width: 96px; image-rendering: pixelated; display: block; }}
 .badge {{ padding: 0.1em 0.5em; border-radius: 0.6em; color: #fff; font-weight: bold; }}
 .badge.pass {{ background: #2f7d5b; }} .badge.fail {{ background: #b3402a; }} .badge.error {{ background: #6c4f99; }}
