@@ -378,3 +378,25 @@ def test_demo_suite_validates_and_a_fault_is_caught(tmp_path, capsys):
     assert by["courtyard_gamma"]["status"] == "fail"
     assert any(x["fault"] == "srgb_encoded" for x in by["courtyard_gamma"]["diagnoses"])
     assert by["courtyard_spheres"]["status"] == "pass", by["courtyard_spheres"]
+
+
+def test_crop_mask_and_wrong_size(frames, tmp_path, capsys):
+    """A crop and a mask restrict the compared pixels (counted); a frame of another size is an error."""
+    import imageio.v3 as iio
+    mask = np.zeros((16, 24), dtype=np.uint8)
+    mask[:, :10] = 255
+    iio.imwrite(tmp_path / "left.png", mask)
+    small = refrender.render(refrender.load_scene(dict(PLANE, film={"width": 12, "height": 8})), spp=4, seed=1)
+    write_exr(tmp_path / "small.exr", small.mean, small.variance, {})
+    scene, ok = str(frames / "plane.json"), str(frames / "ok.exr")
+    p = _suite(tmp_path, [{"name": "cropped", "scene": scene, "frame": ok, "crop": [4, 2, 20, 14]},
+                          {"name": "masked", "scene": scene, "frame": ok, "mask": "left.png"},
+                          {"name": "both", "scene": scene, "frame": ok, "mask": "left.png", "crop": [5, 0, 24, 16]},
+                          {"name": "small", "scene": scene, "frame": "small.exr"}])
+    rc, _, err = _run(["suite", p, "--cache", tmp_path / "refs", "--json", tmp_path / "r.json"], capsys)
+    by = {c["name"]: c for c in json.loads((tmp_path / "r.json").read_text())["cases"]}
+    assert rc == 1
+    assert by["cropped"]["pixels_compared"] == 16 * 12 and by["cropped"]["status"] == "pass"
+    assert by["masked"]["pixels_compared"] == 10 * 16
+    assert by["both"]["pixels_compared"] == 5 * 16
+    assert by["small"]["status"] == "error" and "size mismatch" in by["small"]["message"]

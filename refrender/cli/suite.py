@@ -68,6 +68,11 @@ def run(args) -> int:
     report = Path(args.report) if args.report else None
     if report is not None and report.exists() and not report.is_dir():
         raise RenderError(f"--report: {args.report!r} is not a folder")
+    if report is not None:
+        try:
+            import matplotlib  # noqa: F401  (the per-case comparison reports draw colour scales)
+        except ImportError:
+            raise RenderError("--report: needs matplotlib (pip install 'refrender[plots]')") from None
     if args.local_workers is not None and args.local_workers < 1:
         raise RenderError(f"--local-workers: must be >= 1, got {args.local_workers}")
     use_farm = bool(args.cluster) or args.local_workers is not None

@@ -48,13 +48,14 @@ class Interrupted(RefrenderError):
 
 def reference_settings(scene, budget: dict) -> dict:
     """The resolved settings that decide a reference image (its cache key)."""
+    from ..overnight import DEFAULT_MIN_SPP
     from ..render import resolve_settings
     spp = budget.get("spp")
     if spp is None and "time_s" not in budget and "target_error" not in budget:
         spp = scene.render.spp
     st = resolve_settings(scene, spp=spp if spp is not None else 1, seed=budget.get("seed"))
     out = {"spp": spp, "time_s": budget.get("time_s"), "target_error": budget.get("target_error"),
-           "min_spp": budget.get("min_spp") if budget.get("target_error") is not None else None}
+           "min_spp": budget.get("min_spp", DEFAULT_MIN_SPP) if budget.get("target_error") is not None else None}
     out.update({k: st[k] for k in ("seed", "max_bounces", "rr_start", "strategy", "light_sampling")})
     return out
 

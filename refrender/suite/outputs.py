@@ -137,10 +137,10 @@ def trend_svg(runs: list, case: str, metric: str = TREND_METRIC, n: int = TREND_
         return f'<svg class="trend" width="{w}" height="{h}"><title>no history</title></svg>'
     lo, hi = min(vals), max(vals)
     span = hi - lo if hi > lo else (abs(hi) or 1.0)
-    step = (w - 2 * pad) / max(1, TREND_RUNS - 1)
+    step = (w - 2 * pad) / max(1, len(pts) - 1)
     coords = []
     for i, (v, st, lab) in enumerate(pts):
-        x = pad + step * (i + TREND_RUNS - len(pts))
+        x = pad + step * i if len(pts) > 1 else w / 2
         y = None if v is None else h - pad - (v - lo) / span * (h - 2 * pad) if hi > lo else h / 2
         coords.append((x, y, v, st, lab))
     line = " ".join(f"{x:.1f},{y:.1f}" for x, y, *_ in coords if y is not None)
@@ -246,7 +246,7 @@ table {{ border-collapse: collapse; font-size: 0.85em; }}
 th, td {{ padding: 0.25em 0.5em; border-bottom: 1px solid #ddd; vertical-align: top; text-align: left; }}
 th[data-key] {{ cursor: pointer; user-select: none; white-space: nowrap; }}
 th.asc::after {{ content: " \\25B2"; }} th.desc::after {{ content: " \\25BC"; }}
-td[data-v] {{ max-width: 28em; }} td.verdict {{ min-width: 24em; max-width: 36em; }} td ul {{ margin: 0.2em 0 0 1em; padding: 0; }}
+td[data-v] {{ max-width: 28em; }} td.verdict {{ width: 30em; min-width: 30em; }} td ul {{ margin: 0.2em 0 0 1em; padding: 0; }}
 img.thumb {{ width: 96px; image-rendering: pixelated; display: block; }}
 .badge {{ padding: 0.1em 0.5em; border-radius: 0.6em; color: #fff; font-weight: bold; }}
 .badge.pass {{ background: #2f7d5b; }} .badge.fail {{ background: #b3402a; }} .badge.error {{ background: #6c4f99; }}

@@ -134,6 +134,7 @@ def run_case(case: Case, suite: Suite, cache: ReferenceCache, *, work: Path, rep
                diagnoses=[{"fault": d["fault"], "confidence": _num(d["confidence"]), "detail": d["detail"]}
                           for d in rep["diagnoses"]],
                notes=list(rep["significance"].get("notes", [])),
+               pixels_compared=rep["inputs"]["pixels_compared"],
                message="; ".join(failed) if failed else "")
     if report_dir is not None:
         from ..compare.report import write_report
