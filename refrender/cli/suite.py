@@ -6,7 +6,6 @@ be compared, 2 = the suite file or an option is invalid (one line on stderr),
 """
 from __future__ import annotations
 
-import os
 import sys
 from pathlib import Path
 

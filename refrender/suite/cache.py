@@ -129,7 +129,7 @@ class ReferenceCache:
                                  int(man.get("spp", 0)), float(man.get("seconds", 0.0)))
         exr, state, man = self.paths(key, kernel)
         exr.parent.mkdir(parents=True, exist_ok=True)
-        prev = None if update else self._checkpoint(state, scene, settings)
+        prev = None if update else self._checkpoint(state, scene, settings, farm=client is not None)
         if log is not None:
             log(f"{'resuming' if prev is not None else 'rendering'} reference {key[:12]} "
                 f"({_budget_text(settings)})" + (f" from {prev.spp} spp" if prev is not None else ""))
@@ -148,27 +148,40 @@ class ReferenceCache:
         return Reference(exr, key, kernel, status, result.spp, manifest["seconds"])
 
     @staticmethod
-    def _checkpoint(state: Path, scene, settings):
-        """An unfinished render of this very reference to continue, or None."""
+    def _checkpoint(state: Path, scene, settings, farm: bool = False):
+        """An unfinished render of this very reference to continue, or None.
+
+        A local render continues a checkpoint of one sample range from 0 (its
+        accumulators, bit-identically); a farm render also takes the several
+        ranges of a farm checkpoint (``render_farm(done=...)`` renders the rest).
+        """
         if not state.is_file():
             return None
-        from ..overnight import check_resumable
-        from ..result import Result
+        from ..overnight import check_resumable, kernel_sha256
+        from ..result import ESTIMATOR_KEYS, Result
         try:
             prev = Result.from_state(state)
-            meta = {k: prev.meta.get(k) for k in ("width", "height", "window")}
-            meta.update(scene_sha256=scene.sha256, **{k: settings[k] for k in
-                                                     ("seed", "strategy", "light_sampling", "max_bounces", "rr_start")})
-            check_resumable(prev, meta, 0)
         except RefrenderError:
             return None
+        want = {k: prev.meta.get(k) for k in ("width", "height", "window")}
+        want.update(scene_sha256=scene.sha256, **{k: settings[k] for k in
+                                                 ("seed", "strategy", "light_sampling", "max_bounces", "rr_start")})
         if prev.run.get("complete", False) or prev.run.get("budget", {}).get("spp") != settings["spp"]:
+            return None
+        if farm:
+            ok = (all(prev.meta.get(k) == want.get(k) for k in ESTIMATOR_KEYS)
+                  and prev.run.get("kernel_sha256") == kernel_sha256()
+                  and all(0 <= a < b <= settings["spp"] for a, b in prev.sample_ranges))
+            return prev if ok else None
+        try:
+            check_resumable(prev, want, 0)
+        except RefrenderError:
             return None
         return prev
 
     @staticmethod
     def _render(scene, settings, prev, exr: Path, client):
-        from ..overnight import EXIT_STATUS, StopOnSignal
+        from ..overnight import EXIT_STATUS, StopOnSignal, kernel_sha256
         over = {k: settings[k] for k in ("seed", "max_bounces", "rr_start", "strategy", "light_sampling")}
         with StopOnSignal() as stop:
             if client is not None:
@@ -177,6 +190,8 @@ class ReferenceCache:
 
                 def on_task(partial):
                     if time.monotonic() - last[0] >= CHECKPOINT_SECONDS:
+                        partial.run = dict(partial.run, stop_reason="checkpoint", complete=False,
+                                           budget={"spp": settings["spp"]}, kernel_sha256=kernel_sha256())
                         partial.save(exr)
                         last[0] = time.monotonic()
                 result = farm.render_farm(scene, client, spp=settings["spp"], done=prev, on_task=on_task,

@@ -21,7 +21,7 @@ import time
 from pathlib import Path
 
 from ..errors import RefrenderError
-from .cache import Interrupted, ReferenceCache
+from .cache import ReferenceCache
 from .spec import Case, Suite
 
 #: per-case numbers kept in the JSON, the report table and the history
@@ -121,8 +121,6 @@ def run_case(case: Case, suite: Suite, cache: ReferenceCache, *, work: Path, rep
         test = load_frame(frame_path)
         check_sizes(reference, test)
         rep = compare(reference, test, mask=case.mask, crop=case.crop, tolerance=case.tolerance)
-    except Interrupted:
-        raise
     except RefrenderError as exc:
         rec["message"] = str(exc)
         rec["seconds"] = time.perf_counter() - t0
