@@ -28,7 +28,7 @@ ROOT = Path(__file__).resolve().parents[1]
 PLANE = {
     "version": 1, "camera": {"position": [0, 0, 1.5], "look_at": [0, 0, 0], "fov_y": 40},
     "film": {"width": 24, "height": 16},
-    "materials": {"m": {"type": "diffuse", "albedo": [0.7, 0.5, 0.3]}},
+    "materials": {"m": {"type": "lambertian", "albedo": [0.7, 0.5, 0.3]}},
     "objects": [{"shape": "rectangle", "origin": [-2, -2, 0], "edge1": [4, 0, 0], "edge2": [0, 4, 0],
                  "material": "m"},
                 {"shape": "rectangle", "origin": [-1, -1, 2], "edge1": [0, 2, 0], "edge2": [2, 0, 0],
