@@ -24,7 +24,7 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _parser() -> argparse.ArgumentParser:
-    from . import info, render, validate
+    from . import info, render, suite, validate
     from . import merge as merge_cli
     p = _Parser(prog="refrender", description="Ground-truth Monte Carlo path tracing "
                                 "with per-pixel error bars.")
@@ -34,6 +34,7 @@ def _parser() -> argparse.ArgumentParser:
     info.add_parser(sub)
     validate.add_parser(sub)
     merge_cli.add_parser(sub)
+    suite.add_parser(sub)
     return p
 
 
