@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import dataclasses
+import os
 import time
 from contextlib import contextmanager
 
@@ -36,6 +37,20 @@ def _threads(n):
         yield
     finally:
         numba.set_num_threads(old)
+
+
+#: cold compile of the kernels, measured on the shared 2-core machine (demo room,
+#: empty NUMBA_CACHE_DIR): what "compiling kernels (first run only, about N s)" says
+COLD_COMPILE_SECONDS = 45
+
+
+def kernels_cold() -> bool:
+    """True when the kernel cache holds no compiled path tracer yet (the next
+    render compiles for tens of seconds)."""
+    try:
+        return not os.path.exists(render_pass._cache._cache_file._index_path)
+    except AttributeError:             # numba internals moved: assume warm
+        return False
 
 
 def _row_order(h: int) -> np.ndarray:
@@ -107,7 +122,7 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
            rr_start=None, strategy=None, light_sampling=None, threads=None,
            progress=None, time_limit=None, target_error=None, min_spp=DEFAULT_MIN_SPP,
            resume=None, checkpoint=None, checkpoint_every=None, should_stop=None,
-           color_space=None, layers=None) -> Result:
+           color_space=None, layers=None, on_compile=None) -> Result:
     """Render a scene.
 
     Keyword arguments override the scene's ``render`` block.  Samples
@@ -149,6 +164,12 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
     should_stop : callable, optional
         Called between passes; a non-empty string return (e.g. ``"SIGINT"``)
         ends the render after the completed passes with that stop reason.
+    on_compile : callable, optional
+        ``on_compile(estimated_seconds)`` is called before the kernels are
+        compiled when the kernel cache is cold.  Compiling (or loading the
+        cache) happens before the render clock starts: it is recorded as
+        ``stats["compile_seconds"]`` and excluded from ``stats["seconds"]``
+        and ``stats["mrays_per_s"]``.
 
     Returns
     -------
@@ -235,6 +256,7 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
         rays = int(prev_stats.get("rays", 0)) + int(row_rays.sum())
         stats = dict(rays=rays, seconds=seconds,
                      mrays_per_s=rays / seconds / 1e6 if seconds > 0 else 0.0,
+                     compile_seconds=float(prev_stats.get("compile_seconds", 0.0)) + compile_seconds,
                      nonfinite_samples=int(prev_stats.get("nonfinite_samples", 0)) + int(row_bad.sum()))
         if row_time[:, 0].sum() > 0:
             # share of the path tracer's CPU time spent in BVH traversal and
@@ -259,6 +281,13 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
         check_at = next_check(done, min_spp)
         return stat < target_error
 
+    if on_compile is not None and kernels_cold():
+        on_compile(COLD_COMPILE_SECONDS)
+    tc = time.perf_counter()
+    render_pass(*args, first_sample, 0, np.zeros(0, dtype=np.int64), acc_sum, acc_sq, acc_n,
+                row_rays, row_bad, row_time, fa.filt, fa.cdf, fa.pdf, lp.lay_depth,
+                lp.lay_obj, lp.lay_light, lp.lay_misc, acc_lsum, acc_lsq)   # compiles or loads, no samples
+    compile_seconds = time.perf_counter() - tc
     batch = 1
     t0 = _clock()
     last_checkpoint = t0

@@ -326,7 +326,8 @@ def merge(results, names=None) -> Result:
             lq += results[i].layer_sq
     stats = {"rays": sum(int(r.stats.get("rays", 0)) for r in results),
              "seconds": sum(float(r.stats.get("seconds", 0.0)) for r in results),
-             "nonfinite_samples": sum(int(r.stats.get("nonfinite_samples", 0)) for r in results)}
+             "nonfinite_samples": sum(int(r.stats.get("nonfinite_samples", 0)) for r in results),
+             "compile_seconds": sum(float(r.stats.get("compile_seconds", 0.0)) for r in results)}
     stats["mrays_per_s"] = stats["rays"] / stats["seconds"] / 1e6 if stats["seconds"] > 0 else 0.0
     timed = [r for r in results if "traversal_share" in r.stats]
     weight = sum(float(r.stats.get("seconds", 0.0)) for r in timed)

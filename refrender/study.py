@@ -91,7 +91,7 @@ def _check_configs(configs) -> list:
     return out
 
 
-def _reference_arrays(scene, reference, schedule, factor, threads):
+def _reference_arrays(scene, reference, schedule, factor, threads, allow_other_scene=False):
     """(mean, variance or None, description)."""
     from .result import Result
     if reference is None or reference == "render":
@@ -102,7 +102,10 @@ def _reference_arrays(scene, reference, schedule, factor, threads):
         return reference.mean, reference.variance, f"Result with {reference.spp} spp"
     if isinstance(reference, (str, os.PathLike)):
         from .compare.inputs import load_frame
+        from .compare.inputs import check_same_scene, scene_of
         fr = load_frame(reference)
+        check_same_scene(scene_of(fr), scene.sha256, reference_name=f"--reference {reference}",
+                         test_name="the studied scene", allow=allow_other_scene)
         return fr.rgb, fr.variance, f"{reference}" + ("" if fr.variance is not None else " (no variance layer)")
     if isinstance(reference, tuple) and len(reference) == 2:
         m = np.asarray(reference[0], dtype=np.float64)
@@ -144,7 +147,8 @@ def _snapshot_row(acc, ref_mean, ref_var, metric_names, peak):
 
 
 def run(scene, configs, schedule=None, *, max_spp: int = 256, reference=None, reference_factor: int = 4,
-        seeds=(0,), metrics=DEFAULT_METRICS, threads=None, progress=None) -> list:
+        seeds=(0,), metrics=DEFAULT_METRICS, threads=None, progress=None,
+        allow_other_scene: bool = False) -> list:
     """Run a convergence study; returns one plain dict per (config, seed, snapshot).
 
     Parameters
@@ -166,6 +170,9 @@ def run(scene, configs, schedule=None, *, max_spp: int = 256, reference=None, re
     metrics : names of functions in ``refrender.compare.metrics``.
     progress : callable, optional
         ``progress(config_name, seed, spp)`` after each snapshot.
+    allow_other_scene : bool
+        Accept a reference EXR whose ``scene_sha256`` is not the scene's
+        (refused by default).
     """
     configs = _check_configs(configs)
     sched = _check_schedule(schedule) if schedule is not None else default_schedule(max_spp)
@@ -182,7 +189,8 @@ def run(scene, configs, schedule=None, *, max_spp: int = 256, reference=None, re
     if reference is not False:
         if reference in (None, "render") and REFERENCE_SEED in seeds:
             raise StudyError(f"seeds: {REFERENCE_SEED} is the seed of the on-the-fly reference")
-        ref_mean, ref_var, ref_desc = _reference_arrays(scene, reference, sched, reference_factor, threads)
+        ref_mean, ref_var, ref_desc = _reference_arrays(scene, reference, sched, reference_factor, threads,
+                                                         allow_other_scene)
         x0, y0, x1, y1 = scene.film.window
         if ref_mean.shape[:2] != (y1 - y0, x1 - x0):
             raise StudyError(f"reference: {ref_mean.shape[1]}x{ref_mean.shape[0]} does not match the film "
@@ -586,6 +594,8 @@ def main(argv=None) -> int:
     p.add_argument("--seeds", default="0", help="seeds of independent runs, e.g. 0,1,2 (default 0)")
     p.add_argument("--reference", help="reference EXR; default: render one at --reference-factor x max spp")
     p.add_argument("--reference-factor", type=int, default=4)
+    p.add_argument("--allow-other-scene", action="store_true",
+                   help="accept a --reference EXR rendered from another scene (scene_sha256 differs)")
     p.add_argument("--no-reference", action="store_true", help="variance-predicted MSE only")
     p.add_argument("--film", metavar="WxH", help="override the film size (quick studies)")
     p.add_argument("--out", "-o", default="convergence", help="output folder (default ./convergence)")
@@ -632,7 +642,7 @@ def main(argv=None) -> int:
             n = len(configs) * len(kw.get("seeds", [0])) * len(
                 kw.get("schedule") or default_schedule(kw.get("max_spp", 256)))
             bar = tqdm(total=n, unit="snapshot", file=sys.stderr)
-        rows = run(scene, configs, progress=(lambda *a: bar.update(1)) if bar else None, **kw)
+        rows = run(scene, configs, allow_other_scene=args.allow_other_scene, progress=(lambda *a: bar.update(1)) if bar else None, **kw)
         if bar:
             bar.close()
         summary = summarise(rows)

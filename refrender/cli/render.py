@@ -63,6 +63,11 @@ def add_parser(sub) -> None:
                    help="comma-separated layers beside the beauty: albedo, normal, depth, position, "
                         "object_id, material_id, transport, bounces[:N], light_groups")
     p.add_argument("--threads", type=int, help="worker threads (default: all cores)")
+    p.add_argument("--film", metavar="WxH", help="film size, overriding the scene's (e.g. 160x120)")
+    p.add_argument("--crop", metavar="X0,Y0,X1,Y1", help="render only this half-open pixel window of the film")
+    p.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="assignments",
+                   help="override a scene value: dotted path, JSON value, e.g. camera.fov_y=40 or "
+                   "'materials.wall.albedo=[0.5,0.5,0.5]' (repeatable; part of the scene hash)")
     farm = p.add_argument_group("farm renders (Dask distributed)")
     farm.add_argument("--cluster", metavar="ADDRESS",
                       help="render on an existing Dask scheduler, e.g. tcp://head:8786")
@@ -188,7 +193,7 @@ def _settings(args, prev):
 
 
 def run(args) -> int:
-    from .. import load_scene, render
+    from .. import render
     from ..io import state_path_for
     from ..overnight import EXIT_STATUS, StopOnSignal, check_disk, check_memory, format_duration
     out = Path(args.output)
@@ -203,7 +208,13 @@ def run(args) -> int:
     every = None
     if str(args.checkpoint_every).strip().lower() not in ("off", "none", "never", "0"):
         every = parse_duration(args.checkpoint_every, "--checkpoint-every")
-    scene = load_any_scene(args)
+    if args.assignments or args.film is not None or args.crop is not None:
+        if is_gltf(args.scene):
+            raise RenderError("--set/--film/--crop: apply to a JSON scene (for glTF use --film-height)")
+        from ..scene.overrides import load_with_overrides
+        scene = load_with_overrides(args.scene, args.assignments, film=args.film, crop=args.crop)
+    else:
+        scene = load_any_scene(args)
     prev = _previous(state, args)
     overrides, budget, first = _settings(args, prev)
     from ..render import SPP_UNLIMITED, resolve_settings
@@ -215,33 +226,41 @@ def run(args) -> int:
         check_memory(y1 - y0, x1 - x0)
     check_disk(out.parent, y1 - y0, x1 - x0, preview=bool(args.preview))
     capped = budget["spp"] is not None or not uncapped
-    bar = None
     progress = None  # noqa: F811 (replaced by a closure when a bar is shown)
-    if not args.quiet and sys.stderr.isatty():
+    show_bar = not args.quiet and sys.stderr.isatty()
+    bars = []                           # the bar starts with the first pass (after compiling)
+    if show_bar:
         from tqdm import tqdm
-        bar = tqdm(total=st["spp"] if capped else None, initial=prev.spp if prev else 0,
-                   unit="spp", desc="render", file=sys.stderr, dynamic_ncols=True)
 
         def progress(done, total, rays, seconds):
-            bar.update(done - bar.n)
+            if not bars:
+                bars.append(tqdm(total=st["spp"] if capped else None, initial=prev.spp if prev else 0,
+                                 unit="spp", desc="render", file=sys.stderr, dynamic_ncols=True))
+            b = bars[0]
+            b.update(done - b.n)
             if seconds > 0:
-                bar.set_postfix_str(f"{rays / seconds / 1e6:.1f} Mrays/s", refresh=False)
+                b.set_postfix_str(f"{rays / seconds / 1e6:.1f} Mrays/s", refresh=False)
+
+    def on_compile(estimate):
+        if not args.quiet:
+            print(f"refrender: compiling kernels (first run only, about {estimate:.0f} s)",
+                  file=sys.stderr, flush=True)
 
     def checkpoint(partial):
         partial.save(out, preview=args.preview, exposure=args.exposure)
 
     if args.cluster or args.local_workers is not None:
-        return _run_farm(args, scene, prev, overrides, budget, first, out, state, every, bar)
+        return _run_farm(args, scene, prev, overrides, budget, first, out, state, every, show_bar)
     try:
         with StopOnSignal() as stop:
             result = render(scene, first_sample=first, threads=args.threads, progress=progress,
                             resume=prev, checkpoint=checkpoint, checkpoint_every=every,
-                            should_stop=stop, **budget, **overrides)
+                            should_stop=stop, on_compile=on_compile, **budget, **overrides)
             if result.spp:
                 result.save(out, preview=args.preview, exposure=args.exposure)
     finally:
-        if bar is not None:
-            bar.close()
+        for b in bars:
+            b.close()
     reason = result.run["stop_reason"]
     if reason in EXIT_STATUS and result.spp == 0:
         print(f"refrender: {reason}: stopped before the first pass; nothing was written",
@@ -259,7 +278,9 @@ def run(args) -> int:
         err = "n/a (< 2 spp)" if err is None else f"{100 * err:.3g}%"
         p95 = noise["rel_error_p95"]
         p95 = "" if p95 is None else f" (95th percentile {100 * p95:.3g}%)"
-        print(f"{out}: {result.spp} spp, {s['seconds']:.2f} s, {s['mrays_per_s']:.2f} Mrays/s, "
+        comp = s.get("compile_seconds", 0.0)
+        comp = f" (+ {comp:.1f} s compiling kernels)" if comp >= 2.0 else ""
+        print(f"{out}: {result.spp} spp, {s['seconds']:.2f} s{comp}, {s['mrays_per_s']:.2f} Mrays/s, "
               f"mean relative standard error {err}{p95}, stopped by {reason}", file=sys.stderr)
     return 0
 
@@ -301,8 +322,7 @@ def _run_farm(args, scene, prev, overrides, budget, first, out, state, every, ba
 
     tasks_bar = None
     progress = None
-    if bar is not None:
-        bar.close()
+    if bar:
         from tqdm import tqdm
         tasks_bar = tqdm(unit="task", desc="farm", file=sys.stderr, dynamic_ncols=True)
 

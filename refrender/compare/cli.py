@@ -35,6 +35,11 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--fail-if", action="append", default=[], metavar="COND",
                    help="exit 1 if COND holds, e.g. 'relmse>0.01', 'psnr.R<30', 'bias_z>4', 'significant' "
                    "(repeatable; metric[.R|.G|.B|.Y] OP value, Y by default)")
+    p.add_argument("--alpha", type=float, default=None, metavar="P",
+                   help="false-alarm level of the verdict 'significant' (default 0.002): the probability "
+                   "that two unbiased frames of the same scene are called significant")
+    p.add_argument("--allow-other-scene", action="store_true",
+                   help="compare even when the frames' scene_sha256 differ")
     p.add_argument("--quiet", action="store_true", help="print only failed conditions and errors")
     p.add_argument("--explain", action="store_true",
                    help="explain the difference by the reference's light-transport layers (weighted "
@@ -47,7 +52,9 @@ def parser() -> argparse.ArgumentParser:
 
 def run(args) -> int:
     from .core import EXTRA_QUANTITIES, compare, failed_conditions, parse_condition
-    from .inputs import CompareError, check_sizes, load_frame, load_mask, parse_crop
+    from .inputs import (CompareError, check_same_scene, check_sizes, load_frame, load_mask, parse_crop,
+                         scene_of)
+    from .significance import DEFAULT_ALPHA
     from .report import table, write_json, write_report
     for cond in args.fail_if:
         name = parse_condition(cond)[0]
@@ -68,13 +75,20 @@ def run(args) -> int:
         raise CompareError(f"--tolerance: must be > 0, got {args.tolerance}")
     ref = load_frame(args.reference, layer=args.reference_layer)
     test = load_frame(args.test, layer=args.layer, channels=args.channels)
+    scene_note = check_same_scene(scene_of(ref), scene_of(test), reference_name=f"reference {args.reference}",
+                                  test_name=f"test {args.test}", allow=args.allow_other_scene)
     check_sizes(ref, test)
     from .faults import reconcile_spaces
     test = reconcile_spaces(ref, test, convert=args.convert)
+    alpha = DEFAULT_ALPHA if args.alpha is None else args.alpha
+    if not 0 < alpha < 1:
+        raise CompareError(f"--alpha: must be in (0, 1), got {args.alpha}")
     crop = parse_crop(args.crop, ref.rgb.shape) if args.crop else None
     mask = load_mask(args.mask, ref.rgb.shape) if args.mask else None
     rep = compare(ref, test, mask=mask, crop=crop, tolerance=args.tolerance, eps=args.eps, peak=args.peak,
-                  exposure=args.exposure, grid=(gy, gx))
+                  exposure=args.exposure, grid=(gy, gx), alpha=alpha)
+    if scene_note:
+        rep["significance"].setdefault("notes", []).append(scene_note)
     explanation = None
     if args.explain:
         from .explain import explain_frames, format_explanation

@@ -11,19 +11,37 @@ import numpy as np
 from .diagnose import diagnose
 from .inputs import CompareError, Frame
 from .metrics import all_metrics
-from .significance import analyse
+from .significance import DEFAULT_ALPHA, analyse
+
+#: frame sources read from 8-bit sRGB pictures
+EIGHT_BIT_SOURCES = ("PNG", "JPG", "JPEG")
+#: diagnoses reported whatever the verdict (they are facts, not fits)
+UNGATED_FAULTS = ("non_finite", "non_finite_reference", "clipped_reference")
+
+
+def _spp(frame: Frame):
+    v = frame.metadata.get("spp")
+    if isinstance(v, str):
+        try:
+            v = int(v)
+        except ValueError:
+            return None
+    return int(v) if isinstance(v, (int, float)) and not isinstance(v, bool) and v >= 1 else None
 
 
 def compare(reference: Frame, test: Frame, *, mask=None, crop=None, tolerance=None,
             eps: float = 1e-2, peak: float | None = None, exposure: float = 0.0,
-            grid=(8, 8)) -> dict:
+            grid=(8, 8), alpha: float = DEFAULT_ALPHA, spp_ref=None, spp_test=None) -> dict:
     """Compare two frames; returns a plain, JSON-ready dict.
 
     ``crop`` (x0, y0, x1, y1) cuts both frames (and the mask) first; ``mask``
     (H, W) bool selects the compared pixels.  Keys: ``inputs``, ``metrics``
     (see :func:`metrics.all_metrics`), ``significance`` (see
     :func:`significance.analyse`), ``diagnoses`` (see :func:`diagnose.diagnose`),
-    ``verdict``, ``seconds``.
+    ``verdict``, ``seconds``.  ``alpha`` is the false-alarm level of the
+    verdict; ``spp_ref`` / ``spp_test`` default to the frames' metadata.
+    Diagnoses (except non-finite pixels and clipping) are reported only when
+    the verdict is significant, so they share its false-alarm level.
     """
     t0 = time.perf_counter()
     r, t = reference.rgb, test.rgb
@@ -50,10 +68,12 @@ def compare(reference: Frame, test: Frame, *, mask=None, crop=None, tolerance=No
         sig = {"significant": None, "verdict": "no reference variance: significance not assessed",
                "notes": notes[:]}
     else:
-        spps = [f.metadata.get("spp") for f in (reference, test) if test.variance is not None or f is reference]
-        spps = [int(v) for v in spps if isinstance(v, (int, float))]
-        sig = analyse(r, t, vr, vt, mask=sel, grid=grid, tolerance=tolerance, min_spp=min(spps) if spps else None)
-    diags = diagnose(r, t, vr, vt, mask=sel)
+        sig = analyse(r, t, vr, vt, mask=sel, grid=grid, tolerance=tolerance, alpha=alpha,
+                      spp_ref=_spp(reference) if spp_ref is None else spp_ref,
+                      spp_test=_spp(test) if spp_test is None else spp_test)
+    diags = diagnose(r, t, vr, vt, mask=sel, quantised_ref=reference.source in EIGHT_BIT_SOURCES)
+    if sig.get("significant") is False:
+        diags = [d for d in diags if d["fault"] in UNGATED_FAULTS]
     verdict = sig["verdict"]
     return {
         "inputs": {"reference": reference.path, "test": test.path, "reference_source": reference.source,

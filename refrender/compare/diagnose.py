@@ -16,8 +16,18 @@ effects of it and are dropped (a model leaving more than twice the best
 model's excess chi2, and 25 more, is not reported).  Two independent renders of one scene leave
 nothing to remove, so they trigger no diagnosis.
 
+Robustness: the global scale is fitted by iteratively reweighted least
+squares with Huber's loss (Huber 1964, "Robust estimation of a location
+parameter", Ann. Math. Statist. 35, 73-101; k = :data:`HUBER_K` standard
+deviations, quadratic inside and linear outside), so a few extreme pixels
+(fireflies, emitters whose variance is near zero) cannot set it.
+
 Non-finite test pixels are reported (count, first positions) and excluded
-from everything else.
+from everything else.  A reference without a variance layer whose values
+reach exactly 1.0 in many pixels (an 8-bit picture, e.g. a ``--preview`` PNG,
+clipped at 1) is reported as clipped, and its clipped pixels are left out of
+every fit.  8-bit references (``quantised_ref``) get the variance of their
+rounding, (1/255)^2/12 per sRGB code value, carried to linear.
 """
 from __future__ import annotations
 
@@ -31,6 +41,19 @@ from .metrics import LUMINANCE
 
 MIN_IMPROVEMENT = 25.0
 MIN_CONFIDENCE = 0.5
+#: Huber's k, in standard deviations of the residual
+HUBER_K = 4.0
+#: fewest values at exactly 1.0 (and fraction of the compared values) to call a reference clipped
+CLIP_MIN_VALUES, CLIP_MIN_FRACTION = 4, 1e-3
+
+
+def quantisation_variance(linear) -> np.ndarray:
+    """Variance of 8-bit sRGB rounding carried to linear values: (1/255)^2 / 12
+    times the square of d(linear)/d(code) of the IEC 61966-2-1 decoding."""
+    x = np.clip(np.asarray(linear, dtype=np.float64), 0.0, 1.0)
+    enc = np.where(x <= 0.0031308, 12.92 * x, 1.055 * np.power(x, 1 / 2.4) - 0.055)
+    slope = np.where(enc <= 0.04045, 1 / 12.92, 2.4 / 1.055 * np.power((enc + 0.055) / 1.055, 1.4))
+    return (slope / 255.0) ** 2 / 12.0
 
 #: named scale factors (a scale within 1 % or 3 standard errors is called by name)
 _NAMED = [(math.pi, "π"), (1 / math.pi, "1/π"), (2 * math.pi, "2π"), (1 / (2 * math.pi), "1/(2π)"),
@@ -143,10 +166,22 @@ class _Fit:
         return float(np.clip((c_id - c_m) / excess, 0.0, 1.0))
 
 
-def diagnose(reference, test, var_ref=None, var_test=None, *, mask=None) -> list:
+def _clipped_reference(r, var_ref, sel):
+    """(H, W) pixels of a variance-less reference with a channel at exactly 1.0, if it looks clipped."""
+    if var_ref is not None:
+        return None
+    at = (np.abs(r - 1.0) <= 1e-6).any(axis=-1) & sel
+    n_at = int(at.sum())
+    if n_at >= max(CLIP_MIN_VALUES, CLIP_MIN_FRACTION * int(sel.sum())) and float(r[sel].max()) <= 1.0 + 1e-6:
+        return at
+    return None
+
+
+def diagnose(reference, test, var_ref=None, var_test=None, *, mask=None, quantised_ref: bool = False) -> list:
     """Detected faults, most confident first: dicts with ``fault``,
     ``parameter`` (its estimate), ``confidence`` (0–1), ``detail`` (a sentence)
-    and ``chi2_removed``."""
+    and ``chi2_removed``.  ``quantised_ref``: the reference is an 8-bit sRGB
+    picture (its rounding is added to its variance)."""
     r = np.asarray(reference, dtype=np.float64)
     t = np.asarray(test, dtype=np.float64)
     h, w = r.shape[:2]
@@ -170,10 +205,19 @@ def diagnose(reference, test, var_ref=None, var_test=None, *, mask=None) -> list
                       "detail": f"{int(bad_r.sum())} reference pixel(s) are not finite (excluded)",
                       "chi2_removed": math.nan})
     sel = sel & ~bad_t & ~bad_r
+    clip = _clipped_reference(np.where(np.isfinite(r), r, 0.0), var_ref, sel)
+    if clip is not None:
+        n_c = int(clip.sum())
+        found.append({"fault": "clipped_reference", "parameter": 1.0, "confidence": 1.0,
+                      "detail": f"reference clipped at 1.0 in {n_c / max(1, int(sel.sum())):.1%} of pixels "
+                                f"({n_c}; left out of the fits)", "chi2_removed": math.nan, "pixels": n_c})
+        sel = sel & ~clip
     if sel.sum() < 16:
         return found
     r = np.where(np.isfinite(r), r, 0.0)
     t = np.where(np.isfinite(t), t, 0.0)
+    if quantised_ref:
+        var_ref = quantisation_variance(r) + (0.0 if var_ref is None else np.asarray(var_ref, dtype=np.float64))
     fit = _Fit(r, t, var_ref, var_test, sel)
     c_id, n = fit.chi2(r)
     cands = []
@@ -196,10 +240,22 @@ def diagnose(reference, test, var_ref=None, var_test=None, *, mask=None) -> list
     # --- global scale (weighted least squares)
     s_sel = fit.sel3
     sw = fit.w[s_sel]
-    num = float(np.sum(sw * r[s_sel] * t[s_sel]))
-    den = float(np.sum(sw * r[s_sel] ** 2))
+    rs, ts = r[s_sel], t[s_sel]
+    num = float(np.sum(sw * rs * ts))
+    den = float(np.sum(sw * rs ** 2))
     if den > 0:
         s = num / den
+        for _ in range(8):          # IRLS with Huber weights min(1, k / |z|)
+            z = np.abs(ts - s * rs) * np.sqrt(sw)
+            hw = sw * np.minimum(1.0, HUBER_K / np.maximum(z, 1e-300))
+            den_h = float(np.sum(hw * rs ** 2))
+            if not den_h > 0:
+                break
+            s_new = float(np.sum(hw * rs * ts)) / den_h
+            if abs(s_new - s) <= 1e-10 * abs(s):
+                s = s_new
+                break
+            s = s_new
         se = 1.0 / math.sqrt(den) if fit.has_var else 0.0
         label = name_scale(s, se)
         d = f"test ≈ {s:.4g} × reference" + (f" (near {label})" if label else "")

@@ -112,3 +112,25 @@ def check_sizes(ref: Frame, test: Frame) -> None:
     if ref.rgb.shape != test.rgb.shape:
         raise CompareError(f"size mismatch: reference {ref.path} is {ref.rgb.shape[1]}x{ref.rgb.shape[0]}, "
                            f"test {test.path} is {test.rgb.shape[1]}x{test.rgb.shape[0]}")
+
+
+def scene_of(frame: Frame):
+    """The ``scene_sha256`` a frame's metadata records (None if it has none)."""
+    v = frame.metadata.get("scene_sha256") if frame.metadata else None
+    return v if isinstance(v, str) and v else None
+
+
+def check_same_scene(reference_hash, test_hash, *, reference_name="reference", test_name="test",
+                     allow: bool = False, option: str = "--allow-other-scene") -> str | None:
+    """Refuse frames of different scenes (both hashes known and different).
+
+    Returns a note when they differ and ``allow`` is set; raises CompareError
+    (one line naming both files and ``option``) when they differ otherwise.
+    """
+    if not reference_hash or not test_hash or reference_hash == test_hash:
+        return None
+    msg = (f"scene_sha256 differs: {reference_name} is scene {reference_hash[:12]}…, {test_name} is "
+           f"scene {test_hash[:12]}…")
+    if allow:
+        return msg + " (compared anyway: " + option + ")"
+    raise CompareError(f"{msg}: they are renders of different scenes (add {option} to compare anyway)")

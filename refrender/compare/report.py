@@ -47,9 +47,13 @@ def table(report: dict) -> str:
     lines.append("")
     if sig.get("fraction_significant") is not None and sig.get("n_values"):
         g = sig["global_test"]
-        lines.append(f"significance: {sig['fraction_significant']:.3%} of values beyond |z| > 3 "
-                     f"(normal chance {sig['fraction_expected']:.3%}); mean z {g['mean_z']:+.3f} ± {g['se']:.3f}; "
-                     f"pooled bias {g['t']:+.2f} standard errors")
+        tests = {t["test"]: t for t in sig.get("tests", [])}
+        reg, disp = tests.get("regional bias", {}), tests.get("dispersion", {})
+        lines.append(f"significance (false-alarm level {sig['alpha']:g}): global bias {g['t']:+.2f} standard "
+                     f"errors (p = {g['p']:.2g}); {reg.get('regions', 0)} regions tested, smallest p "
+                     f"{reg.get('p', math.nan):.2g}; dispersion z {disp.get('statistic', math.nan):+.2f}")
+        lines.append(f"per value: {sig['fraction_significant']:.3%} beyond |t| > 3 "
+                     f"({sig['fraction_expected']:.3%} expected under t; descriptive, not in the verdict)")
         rb = sig.get("relative_bias")
         if rb:
             lines.append(f"relative bias of mean luminance: {rb['value']:+.3%} ± {rb['se']:.3%}")
@@ -117,7 +121,11 @@ def _colormap(values, cmap, vmin, vmax):
     return out
 
 
-def _colorbar_png(cmap, vmin, vmax, label):
+#: colour of pixels whose combined variance is zero in the t map (and its bar)
+ZERO_VARIANCE_RGB = (0, 160, 60)
+
+
+def _colorbar_png(cmap, vmin, vmax, label, extra=None):
     os.environ.setdefault("MPLCONFIGDIR", os.path.join(os.environ.get("TMPDIR", "/tmp"), "refrender-mpl"))
     matplotlib = _matplotlib()
     matplotlib.use("Agg")
@@ -127,6 +135,14 @@ def _colorbar_png(cmap, vmin, vmax, label):
     norm = matplotlib.colors.Normalize(vmin=vmin, vmax=vmax)
     fig.colorbar(matplotlib.cm.ScalarMappable(norm=norm, cmap=cmap), cax=ax, orientation="horizontal",
                  label=label)
+    if extra is not None:                  # (rgb, text): a swatch beside the bar
+        rgb, text = extra
+        fig.subplots_adjust(right=0.72)
+        sw = fig.add_axes([0.76, 0.62, 0.05, 0.33])
+        sw.set_facecolor(tuple(c / 255 for c in rgb))
+        sw.set_xticks([])
+        sw.set_yticks([])
+        fig.text(0.83, 0.78, text, va="center", fontsize=8)
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
     plt.close(fig)
@@ -157,9 +173,13 @@ def pictures(reference, test, var_ref=None, var_test=None, *, exposure: float = 
                               _colorbar_png("magma", 0, amax, "absolute error"))
     if var_ref is not None:
         _, zy = z_map(r, t, var_ref, var_test)
-        pics["z"] = (_png_bytes(_colormap(zy, "PuOr_r", -5, 5)),
-                     "z of luminance (t − r)/σ, clipped at ±5; |z| > 3 is significant per pixel",
-                     _colorbar_png("PuOr_r", -5, 5, "z"))
+        zmap = _colormap(zy, "PuOr_r", -5, 5)
+        vsum = np.asarray(var_ref, dtype=np.float64) + (0.0 if var_test is None else np.asarray(var_test))
+        zmap[(vsum.sum(axis=-1) == 0)] = ZERO_VARIANCE_RGB
+        pics["z"] = (_png_bytes(zmap),
+                     "Welch t of luminance (t − r)/√(var_ref + var_test), clipped at ±5 (descriptive: the "
+                     "verdict uses the pooled tests); green: zero variance in both frames",
+                     _colorbar_png("PuOr_r", -5, 5, "t", extra=(ZERO_VARIANCE_RGB, "zero\nvariance")))
     return pics
 
 
