@@ -26,12 +26,12 @@ def _source_hash() -> str:
     for path in sorted(files):
         h.update(path.relative_to(_PKG).as_posix().encode())
         h.update(path.read_bytes())
-    return h.hexdigest()[:16]
+    return h.hexdigest()
 
 
 def _cache_dir() -> str:
     base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
-    return os.path.join(base, "refrender", "numba-" + _source_hash())
+    return os.path.join(base, "refrender", "numba-" + _source_hash()[:16])
 
 
 if "NUMBA_CACHE_DIR" not in os.environ:

@@ -206,6 +206,8 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
         meta["layers"] = list(st["layers"])
         meta["layer_slots"] = list(lp.slots)
     n_slots = len(lp.slots)
+    if scene.source_path is not None:
+        meta["scene_file"] = str(scene.source_path)
     kernels = kernel_sha256()
     if resume is not None:
         done = check_resumable(resume, meta, first_sample)

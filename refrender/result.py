@@ -16,6 +16,8 @@ ESTIMATOR_KEYS = ("scene_sha256", "seed", "strategy", "light_sampling", "max_bou
 #: Rec. 709, no layers), so results without them read and merge as before
 OPTIONAL_KEYS = ("filter", "color_space", "layers", "layer_slots")
 MERGE_KEYS = ESTIMATOR_KEYS + OPTIONAL_KEYS
+#: metadata kept when present that need not agree (the scene file a render was made from)
+OPTIONAL_META_KEYS = ("scene_file",)
 
 
 @dataclass
@@ -187,7 +189,7 @@ class Result:
         arrays, meta = load_state(path)
         try:
             est = {k: meta[k] for k in ESTIMATOR_KEYS}
-            est.update({k: meta[k] for k in OPTIONAL_KEYS if k in meta})
+            est.update({k: meta[k] for k in OPTIONAL_KEYS + OPTIONAL_META_KEYS if k in meta})
             ids = None
             if "object_id" in arrays:
                 ids = {"object_id": arrays["object_id"], "material_id": arrays["material_id"],

@@ -424,7 +424,7 @@ def plot(path, rows, *, title: str = "convergence") -> None:
     try:
         import matplotlib
     except ImportError:
-        raise StudyError("plot: needs matplotlib (pip install 'refrender[plots]')") from None
+        raise StudyError("plot: needs matplotlib (pip install -e '.[plots]')") from None
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
     from .io import atomic_path

@@ -62,7 +62,7 @@ def test_render_writes_exr_state_and_preview(tmp_path, capsys):
     cap = capsys.readouterr()
     assert code == 0, cap.err
     assert _listing(tmp_path) == {"scene.json", "out.exr", "out.state", "out.png"}
-    lines = cap.err.splitlines()
+    lines = [ln for ln in cap.err.splitlines() if "compiling kernels (first run only" not in ln]
     assert len(lines) == 1 and "8 spp" in lines[0] and "Mrays/s" in lines[0], cap.err
     img = read_exr(out)
     assert img.shape == (6, 8) and img.metadata["spp"] == 8 and img.metadata["seed"] == 1
@@ -215,3 +215,93 @@ def test_failed_state_write_leaves_no_exr(tmp_path, capsys):
     assert main(["render", str(scene), "-o", str(tmp_path / "x.exr"), "--quiet"]) == 2
     _one_error_line(capsys)
     assert _listing(tmp_path) == before, "x.exr was left behind by a failed render"
+
+
+# ----------------------------------------------------------------------------- overrides, timings, polish
+
+def test_film_crop_and_set_override_the_scene(tmp_path, capsys):
+    """--film, --crop and --set edit the scene document before validation:
+    the EXR has the new size, and the scene hash is that of the edited
+    document (refrender.load_scene of the same dict), not the file's."""
+    import refrender
+    scene = _write_scene(tmp_path)
+    out = tmp_path / "o.exr"
+    assert main(["render", str(scene), "-o", str(out), "--spp", "2", "--quiet", "--film", "12x10",
+                 "--crop", "2,1,10,9", "--set", "camera.fov_y=30",
+                 "--set", "materials.m.albedo=[0.5,0.5,0.5]", "--set", "objects[1].radius=0.4"]) == 0
+    img = read_exr(out)
+    assert img.shape[:2] == (8, 8)
+    doc = json.loads(json.dumps(TINY))
+    doc["film"] = {"width": 12, "height": 10, "crop": [2, 1, 10, 9]}
+    doc["camera"]["fov_y"] = 30
+    doc["materials"]["m"]["albedo"] = [0.5, 0.5, 0.5]
+    doc["objects"][1]["radius"] = 0.4
+    meta = img.metadata
+    assert meta["scene_sha256"] == refrender.load_scene(doc).sha256
+    assert meta["scene_sha256"] != refrender.load_scene(scene).sha256
+    assert meta["scene_file"] == str(scene.resolve())
+    assert meta["width"] == 12 and meta["window"] == [2, 1, 10, 9]
+
+
+@pytest.mark.parametrize("argv, text", [
+    (["--set", "objects[7].radius=1"], "objects is a list of 3"),
+    (["--set", "camera.fov_y"], "expected KEY=VALUE"),
+    (["--set", "camera.fov_y=[1,"], "not JSON"),
+    (["--set", "camera.fov_y=-5"], "camera.fov_y"),
+    (["--film", "12by10"], "--film"),
+    (["--crop", "1,2,3"], "--crop"),
+])
+def test_bad_overrides_exit_2_with_one_line(tmp_path, capsys, argv, text):
+    scene = _write_scene(tmp_path)
+    before = _listing(tmp_path)
+    assert main(["render", str(scene), "-o", str(tmp_path / "o.exr"), "--quiet"] + argv) == 2
+    line = _one_error_line(capsys)
+    assert text in line, line
+    assert _listing(tmp_path) == before
+
+
+def test_compile_time_is_announced_and_kept_out_of_the_render_time(tmp_path, capsys, monkeypatch):
+    """A cold kernel cache is announced before the first pass; the render's
+    seconds exclude compiling, which is recorded as stats.compile_seconds."""
+    import importlib
+    R = importlib.import_module("refrender.render")
+    monkeypatch.setattr(R, "kernels_cold", lambda: True)
+    scene = _write_scene(tmp_path)
+    out = tmp_path / "c.exr"
+    assert main(["render", str(scene), "-o", str(out), "--spp", "2"]) == 0
+    err = capsys.readouterr().err
+    assert f"compiling kernels (first run only, about {R.COLD_COMPILE_SECONDS} s)" in err
+    stats = read_exr(out).metadata["stats"]
+    assert stats["compile_seconds"] >= 0 and stats["seconds"] > 0
+    assert "compile_seconds" in stats
+
+
+def test_info_values_read_as_json_and_merge_counts_in_words(rendered, tmp_path, capsys):
+    """info prints null/true and rounded floats; merge of one file says '1 render'."""
+    assert main(["info", str(rendered)]) == 0
+    out = capsys.readouterr().out
+    fields = {line.split(":", 1)[0].strip(): line.split(":", 1)[1].strip()
+              for line in out.splitlines() if ":" in line}
+    assert fields["max_bounces"] == "null"
+    assert fields["run.complete"] == "true"
+    assert len(fields["stats.seconds"].replace(".", "").lstrip("0")) <= 7
+    assert fields["scene_file"].endswith("scene.json")
+    assert main(["merge", str(rendered.with_suffix(".state")), "-o", str(tmp_path / "m.exr")]) == 0
+    assert "merged 1 render," in capsys.readouterr().err
+
+
+def test_pickled_file_gives_no_pickle_advice(tmp_path, capsys):
+    path = tmp_path / "obj.state"
+    with open(path, "wb") as fh:
+        np.save(fh, np.array([{"a": 1}], dtype=object), allow_pickle=True)
+    assert main(["info", str(path)]) == 2
+    line = _one_error_line(capsys)
+    assert "allow_pickle" not in line and "Python objects" in line
+
+
+def test_resume_with_fewer_spp_says_so(rendered, capsys):
+    scene = rendered.parent / "scene.json"
+    assert main(["render", str(scene), "-o", str(rendered), "--resume", "--spp", "3", "--seed", "12345"]) == 0
+    err = capsys.readouterr().err
+    assert "--spp 3 is below the 6 spp" in err
+    assert read_exr(rendered).metadata["spp"] == 6

@@ -67,6 +67,21 @@ def layer_listing(channels) -> str:
     return "; ".join(out)
 
 
+def _value(v) -> str:
+    """A value as JSON (null, true, lists), floats rounded to 6 significant digits."""
+    def rounded(x):
+        if isinstance(x, float):
+            return float(f"{x:.6g}")
+        if isinstance(x, (list, tuple)):
+            return [rounded(y) for y in x]
+        if isinstance(x, dict):
+            return {k: rounded(y) for k, y in x.items()}
+        return x
+    if isinstance(v, str):
+        return v
+    return json.dumps(rounded(v), ensure_ascii=False)
+
+
 #: width of the key column
 W = 23
 
@@ -119,7 +134,7 @@ def run(args) -> int:
     channels = info.pop("channels", None)
     slots = info.get("layer_slots")
     for key in sorted(info):
-        print(f"{key:>{W}}: {info[key]}")
+        print(f"{key:>{W}}: {_value(info[key])}")
     if channels is not None:
         print(f"{'channels':>{W}}: {layer_listing(channels)}")
     elif slots:
@@ -128,7 +143,7 @@ def run(args) -> int:
     _flat("stats.", stats, rows)
     _flat("run.", run_info, rows)
     for key, value in rows:
-        print(f"{key:>{W}}: {value}")
+        print(f"{key:>{W}}: {_value(value)}")
     if run_info:
         done = "complete" if run_info.get("complete") else "unfinished: resume with --resume"
         print(f"{'stopped by':>{W}}: {reason} ({done})")

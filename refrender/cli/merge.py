@@ -53,6 +53,6 @@ def run(args) -> int:
         err = noise["rel_error_mean"]
         err = "n/a (< 2 spp)" if err is None else f"{100 * err:.3g}%"
         ranges = ", ".join(f"[{a}, {b})" for a, b in merged.sample_ranges)
-        print(f"{out}: merged {len(results)} renders, {merged.spp} spp (samples {ranges}), "
+        print(f"{out}: merged {len(results)} render{'s' if len(results) != 1 else ''}, {merged.spp} spp (samples {ranges}), "
               f"mean relative standard error {err}", file=sys.stderr)
     return 0

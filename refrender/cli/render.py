@@ -216,6 +216,9 @@ def run(args) -> int:
     else:
         scene = load_any_scene(args)
     prev = _previous(state, args)
+    if prev is not None and args.spp is not None and args.spp < prev.spp and not args.quiet:
+        print(f"refrender: --spp {args.spp} is below the {prev.spp} spp that {state} already holds: "
+              f"no samples are added and the render keeps its {prev.spp} spp", file=sys.stderr)
     overrides, budget, first = _settings(args, prev)
     from ..render import SPP_UNLIMITED, resolve_settings
     uncapped = budget["time_limit"] is not None or budget["target_error"] is not None
@@ -301,7 +304,7 @@ def _run_farm(args, scene, prev, overrides, budget, first, out, state, every, ba
         import distributed
     except ImportError:
         raise RenderError("--cluster/--local-workers: Dask distributed is not installed "
-                          "(pip install 'refrender[farm]')") from None
+                          "(pip install -e '.[farm]')") from None
     spp = budget["spp"]
     if prev is not None and spp is None:
         spp = prev.run.get("budget", {}).get("spp")

@@ -107,7 +107,7 @@ def _matplotlib():
         import matplotlib
     except ImportError:
         from .inputs import CompareError
-        raise CompareError("--report: needs matplotlib (pip install 'refrender[plots]')") from None
+        raise CompareError("--report: needs matplotlib (pip install -e '.[plots]')") from None
     return matplotlib
 
 

@@ -154,6 +154,8 @@ def load_state(path: str | os.PathLike[str]) -> tuple[dict[str, np.ndarray], dic
             raise ImageError(f"{path}: corrupted (checksum mismatch)") from None
         text = str(exc).strip()
         reason = text.splitlines()[0] if text else type(exc).__name__
+        if "pickle" in reason.lower():           # numpy's advice to allow pickles is wrong here
+            reason = "it holds Python objects"
         raise ImageError(f"{path}: not a refrender state file ({reason})") from None
 
     try:
