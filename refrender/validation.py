@@ -85,7 +85,7 @@ def disk_case(R=1.0, h=1.0, a=0.0, spp=1024) -> Case:
     disk = _emission({"shape": "disk", "center": [a, 0.0, h], "normal": [0.0, 0.0, -1.0], "radius": R})
     scene = _scene(_receiver_camera((0, 0, 0), (0, 0, 1)), [_receiver(), disk], spp=spp)
     return Case(f"disk R={R} h={h} a={a}", RHO * L_EMIT * F,
-                HOWELL + " (plane element to parallel disk); validation-references 1a", scene)
+                HOWELL + " (plane element to parallel disk)", scene)
 
 
 def _corner_factor(X, Y):
@@ -104,8 +104,7 @@ def rectangle_case(x1=0.0, x2=1.0, y1=0.0, y2=1.0, c=1.0, spp=1024) -> Case:
                       "edge2": [x2 - x1, 0.0, 0.0]})
     scene = _scene(_receiver_camera((0, 0, 0), (0, 0, 1)), [_receiver(), rect], spp=spp)
     return Case(f"rectangle [{x1},{x2}]x[{y1},{y2}] c={c}", RHO * L_EMIT * F,
-                HOWELL + " (plane element to parallel rectangle, corner formula, superposition); "
-                "validation-references 1b", scene)
+                HOWELL + " (plane element to parallel rectangle, corner formula, superposition)", scene)
 
 
 def sphere_case(r=1.0, d=2.0, theta_deg=30.0, spp=1024) -> Case:
@@ -125,7 +124,7 @@ def sphere_case(r=1.0, d=2.0, theta_deg=30.0, spp=1024) -> Case:
     sphere = _emission({"shape": "sphere", "center": center, "radius": r})
     scene = _scene(_receiver_camera((0, 0, 0), (0, 0, 1)), [_receiver(radius=0.02), sphere], spp=spp)
     return Case(f"sphere r={r} d={d} theta={theta_deg}", RHO * L_EMIT * F,
-                HOWELL + " (plane element to sphere, tilted); validation-references 1c", scene)
+                HOWELL + " (plane element to sphere, tilted)", scene)
 
 
 # --- delta lights ----------------------------------------------------------------
@@ -138,7 +137,7 @@ def point_case(intensity=10.0, d=2.0, theta_deg=60.0, spp=64) -> Case:
     scene = _scene(_receiver_camera((0, 0, 0), (0, 0, 1)), [_receiver()], [light], spp=spp)
     E = intensity * math.cos(th) / d ** 2
     return Case(f"point I={intensity} d={d} theta={theta_deg}", RHO * E / math.pi,
-                "inverse-square and cosine laws (Lambert 1760); validation-references 7", scene)
+                "inverse-square and cosine laws (Lambert 1760, Photometria)", scene)
 
 
 def directional_case(irradiance=3.0, theta_deg=45.0, spp=64) -> Case:
@@ -164,7 +163,7 @@ def furnace_case(albedo=0.6, radiance=1.0, spp=1024) -> Case:
     scene["materials"]["receiver"]["albedo"] = [albedo] * 3
     return Case(f"furnace albedo={albedo}", albedo * radiance,
                 "white furnace: convex Lambertian object in a uniform environment "
-                "(common practice); validation-references 3a", scene)
+                "(common practice)", scene)
 
 
 def enclosure_case(albedo=0.8, emission=0.5, max_bounces=None, spp=2048) -> Case:
@@ -182,7 +181,7 @@ def enclosure_case(albedo=0.8, emission=0.5, max_bounces=None, spp=2048) -> Case
     scene["materials"]["receiver"]["albedo"] = [albedo] * 3
     return Case(f"enclosure albedo={albedo} max_bounces={max_bounces}", L,
                 "closed diffuse enclosure, radiosity equation (Goral et al. 1984); "
-                "validation-references 2a", scene)
+                "closed-enclosure radiosity: Goral, Torrance, Greenberg & Battaile 1984; Siegel & Howell, Thermal Radiation Heat Transfer", scene)
 
 
 def perpendicular_rectangle_case(a=1.0, b=1.0, c=1.0, spp=1024) -> Case:
@@ -196,7 +195,7 @@ def perpendicular_rectangle_case(a=1.0, b=1.0, c=1.0, spp=1024) -> Case:
     scene = _scene(_receiver_camera((0, 0, 0), (0, 0, 1)), [_receiver(), rect], spp=spp)
     return Case(f"perpendicular rectangle a={a} b={b} c={c}", RHO * L_EMIT * F,
                 "Howell's catalog entry B-8 at 90 degrees (Hamilton & Morgan 1952), closed form "
-                "derived from Lambert's polygon formula; validation-references 1d", scene)
+                "derived from Lambert's polygon formula; Howell's catalog entry B-8 (Hamilton & Morgan 1952), 90° case", scene)
 
 
 def integrating_sphere_case(R=1.0, power=4 * math.pi, albedo=0.9, port=0.02, spp=1024) -> Case:
@@ -222,7 +221,7 @@ def integrating_sphere_case(R=1.0, power=4 * math.pi, albedo=0.9, port=0.02, spp
     scene["materials"]["receiver"]["albedo"] = [albedo] * 3
     return Case(f"integrating sphere rho={albedo} port={port}", albedo * E / math.pi,
                 "integrating sphere, point source at the centre (Goebel, Applied Optics 1967; "
-                "derivation in validation-references 2b)", scene)
+                "derivation after Goebel, Generalized Integrating-Sphere Theory, Appl. Opt. 6, 1967)", scene)
 
 
 def _grid_triangles(x1, x2, y1, y2, c, n):
@@ -264,7 +263,7 @@ def mixed_emitters_case(spp=1024) -> Case:
     expected = rect.expected + disk.expected + sph.expected + RHO * E_point / math.pi
     return Case("mixed emitters (131 lights)", expected,
                 HOWELL + " (rectangle, off-axis disk, sphere; superposition) and the "
-                "inverse-square law; validation-references 1a-1c, 7", scene)
+                "inverse-square law; " + HOWELL + " (disk, rectangle, sphere entries)", scene)
 
 
 def measure(case: Case, **overrides):

@@ -5,7 +5,7 @@ from scipy import stats
 
 def pooled_chi2_pvalue(observed, expected):
     """Pearson chi-square p-value after pooling the lowest-expectation bins until every
-    pooled bin has E >= 5 (the usual rule, validation-references 5d); expected counts
+    pooled bin has E >= 5 (the usual rule, Pearson's chi-square with expected counts >= 5, common practice); expected counts
     are rescaled to the observed total (normalisation is tested separately).
     scipy.stats.chi2 is the reference distribution.  Returns (p, pooled bins)."""
     observed = np.asarray(observed, float).ravel()

@@ -8,9 +8,10 @@ Sources of the expected values:
   ray-sphere quadratic in its numerically stable form (common practice) for spheres;
   plane intersection plus bounds for rectangles and disks (elementary geometry);
 * trimesh's ``RayMeshIntersector`` (a general-purpose library) as an outside reference;
-* "§2a", "§5b", "§7": the shared validation-references sheet (closed enclosure
-  L = Le / (1 - rho), Goral et al. 1984; solid angle of a rectangle seen from a point;
-  point light E = I cos(theta) / d^2 and L_o = rho E / pi);
+* "§2a": closed enclosure L = Le / (1 - rho) (radiosity, Goral, Torrance, Greenberg &
+  Battaile 1984); "§5b": solid angle of a rectangle seen from a point (Ureña, Fajardo &
+  King 2013; van Oosterom & Strackee 1983); "§7": point light E = I cos(theta) / d^2 and
+  L_o = rho E / pi (inverse-square and cosine laws, common practice);
 * BVH layout invariants: the documented layout of refrender.geometry.bvh (invariant).
 """
 from __future__ import annotations

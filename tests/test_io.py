@@ -1,7 +1,7 @@
 """Tests of refrender.io: EXR, PFM, PNG/HDR/TIFF/NPY reading, state files, atomic writes.
 
 Numeric references are named beside each check; "§6a" is
-the shared validation-references sheet §6a (IEC 61966-2-1:1999 sRGB transfer function).
+IEC 61966-2-1:1999 (the sRGB transfer function).
 """
 
 from __future__ import annotations
@@ -191,7 +191,7 @@ def test_read_exr_bad_files(tmp_path):
 
 # ----------------------------------------------------------------------------- sRGB (§6a)
 
-# (linear, encoded) pairs from validation-references §6a (IEC 61966-2-1:1999), 6 significant digits.
+# (linear, encoded) pairs from IEC 61966-2-1:1999 (IEC 61966-2-1:1999), 6 significant digits.
 _SRGB_ENCODE_TABLE = [
     (0.001, 0.0129200),
     (0.0031308, 0.0404499),

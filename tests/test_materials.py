@@ -1,7 +1,7 @@
 """Materials: the BSDF battery, Fresnel and GGX against published values, and
 rendered furnace / Fresnel / slab checks.
 
-Sources (see shared validation-references): Fresnel tables 4a/4b (Born & Wolf,
+Sources (published sources, named per check): Fresnel tables 4a/4b (Born & Wolf,
 Principles of Optics; Hecht, Optics), metal constants 4c (Johnson & Christy
 1972; Rakic 1995), GGX 3b (Walter et al. 2007; Heitz 2014), the chi-square
 set-up 5d (common practice), furnace facts 3a (common practice).  Statistical
@@ -139,7 +139,7 @@ def _expected_fractions(case):
 def chi2_pvalue(case, distort=1.0, seed=11):
     """Pearson chi-square over (cos theta, phi) bins of the whole sphere,
     expected counts from the pdf function (24 x 24 midpoint sub-grid per bin),
-    pooled to E >= 5 (validation-references 5d); scipy.stats.chi2 as reference."""
+    pooled to E >= 5 (Pearson's chi-square with expected counts >= 5, common practice); scipy.stats.chi2 as reference."""
     _, kind, p, front, wo = case
     u = np.random.default_rng(seed).random((N_SAMPLES, 3))
     u[:, 0] **= distort
@@ -232,7 +232,7 @@ def test_delta_lobes_have_zero_eval_and_pdf():
 def test_smooth_dielectric_sampling_weights():
     """Reflection with probability R(theta), weight 1; refraction weight 1/eta^2
     (radiance), direction by Snell's law; total internal reflection from inside
-    beyond the critical angle 41.8103 deg (validation-references 4a)."""
+    beyond the critical angle 41.8103 deg (Born & Wolf, Principles of Optics, Fresnel formulae; Hecht, Optics)."""
     p = _row({0: 1.5})
     wo = _wo(45, 0)
     u = np.random.default_rng(1).random((200_000, 3))
@@ -259,7 +259,7 @@ def _R(theta_deg, eta, k=0.0, conductor=False):
 
 @pytest.mark.parametrize("theta,expected", [
     (0, 0.0400000), (30, 0.0415226), (45, 0.0502399), (60, 0.0891867), (80, 0.387704),
-    (89, 0.904185), (56.3099, 0.0739645)])   # validation-references 4a (Born & Wolf; Hecht), n = 1.5
+    (89, 0.904185), (56.3099, 0.0739645)])   # Born & Wolf, Principles of Optics, Fresnel formulae; Hecht, Optics (Born & Wolf; Hecht), n = 1.5
 def test_fresnel_dielectric_table(theta, expected):
     assert _R(theta, 1.5) == pytest.approx(expected, abs=6e-7)
     assert _R(theta, 1.5, 0.0, True) == pytest.approx(_R(theta, 1.5), rel=1e-12)   # k = 0 conductor
@@ -267,7 +267,7 @@ def test_fresnel_dielectric_table(theta, expected):
 
 @pytest.mark.parametrize("theta,expected", [(20, 0.0417285), (30, 0.0551902), (40, 0.245291)])
 def test_fresnel_from_inside_table(theta, expected):
-    """validation-references 4a: glass -> air, and TIR beyond 41.8103 deg."""
+    """Born & Wolf, Principles of Optics, Fresnel formulae; Hecht, Optics: glass -> air, and TIR beyond 41.8103 deg."""
     assert _R(theta, 1 / 1.5) == pytest.approx(expected, abs=6e-7)
     assert _R(41.82, 1 / 1.5) == 1.0
 
@@ -283,12 +283,12 @@ def test_slab_transmittance_formula():
     ("Ag", 0.06, 4.152, (0.986348, 0.985007, 0.984781, 0.997756)),
     ("Al", 1.366, 7.4052, (0.905260, 0.893059, 0.840596, 0.954034))])
 def test_fresnel_conductor_oblique_table(name, n, k, table):
-    """validation-references 4b/4c: exact conductor Fresnel at 45, 60, 80, 89 deg."""
+    """Born & Wolf, Principles of Optics, optics of metals; Johnson & Christy, Phys. Rev. B 6, 4370 (1972); Rakić, Appl. Opt. 34, 4755 (1995): exact conductor Fresnel at 45, 60, 80, 89 deg."""
     for theta, expected in zip((45, 60, 80, 89), table):
         assert _R(theta, n, k, True) == pytest.approx(expected, abs=6e-7), (name, theta)
 
 
-R0_TABLE = {   # validation-references 4c, tabulated wavelengths nearest 630 / 532 / 465 nm
+R0_TABLE = {   # Johnson & Christy, Phys. Rev. B 6, 4370 (1972); Rakić, Appl. Opt. 34, 4755 (1995), tabulated wavelengths nearest 630 / 532 / 465 nm
     "gold": (0.930978, 0.643420, 0.401478), "silver": (0.986930, 0.983541, 0.978572),
     "copper": (0.899683, 0.591486, 0.554676), "aluminium": (0.909589, 0.917739, 0.919960)}
 
@@ -313,7 +313,7 @@ def _ggx(m, o, i, a, ay=None):
     (0.1, 30, 8.32640e-4, 0.999168), (0.1, 80, 0.0748118, 0.930395), (0.5, 60, 0.161438, 0.861002),
     (0.5, 80, 1.00340, 0.499151), (1.0, 60, 0.5, 0.666667), (1.0, 89, 28.1493, 0.0343061)])
 def test_ggx_lambda_and_g1_table(alpha, theta, lam, g1):
-    """validation-references 3b (Heitz 2014): Lambda and G1 = 1/(1 + Lambda)."""
+    """Walter, Marschner, Li & Torrance 2007, Microfacet Models for Refraction through Rough Surfaces; Heitz 2014, Understanding the Masking-Shadowing Function in Microfacet-Based BRDFs, JCGT 3(2) (Heitz 2014): Lambda and G1 = 1/(1 + Lambda)."""
     o = _wo(theta, 0)
     out = _ggx(Z, o, Z, alpha)[0]
     assert out[1] == pytest.approx(g1, rel=2e-6)
@@ -396,7 +396,7 @@ def _assert_close(mean, se, expected, what):
     {"type": "lambertian", "albedo": [1, 1, 1]}], ids=["glass 1.5", "dense glass in a medium", "white diffuse"])
 def test_objects_invisible_in_the_furnace(material, strategy):
     """A smooth dielectric sphere (any index) and a white diffuse sphere in a uniform
-    environment of radiance 1: every pixel equals 1 (validation-references 3a)."""
+    environment of radiance 1: every pixel equals 1 (diffuse white furnace, common practice)."""
     cam = {"projection": "orthographic", "position": [0, 0, 3], "look_at": [0, 0, 0], "view_height": 1.4}
     doc = _doc(cam, {"m": material}, [{"shape": "sphere", "center": [0, 0, 0], "radius": 1.0,
                                        "material": "m"}], spp=512)
@@ -417,7 +417,7 @@ E_SEP = {(0.5, 45): 0.678451, (0.5, 80): 0.746902, (1.0, 45): 0.359500, (1.0, 80
 def test_strong_furnace_rough_conductor(alpha, theta):
     """Unit-Fresnel rough conductor (height-correlated G2) in a furnace of radiance 1,
     seen at theta_o by an orthographic camera: the pixel is the single-scattering
-    directional albedo E(o) of validation-references 3b."""
+    directional albedo E(o) of Walter, Marschner, Li & Torrance 2007, Microfacet Models for Refraction through Rough Surfaces; Heitz 2014, Understanding the Masking-Shadowing Function in Microfacet-Based BRDFs, JCGT 3(2)."""
     doc = _doc(_ortho_at(theta), {"m": {"type": "metal", "f0": [1, 1, 1],
                                         "ggx_alpha": alpha}}, [_plane("m")], spp=4096)
     mean, se = _render(doc)
@@ -429,7 +429,7 @@ def test_strong_furnace_rough_conductor(alpha, theta):
 def test_strong_furnace_metallic_roughness_white_metal(alpha, theta):
     """glTF metallic-roughness with metallic 1 and base colour 1 has F = 1 and the
     specification's separable Smith G: its furnace pixel is the separable E(o) of
-    validation-references 3b (roughness = sqrt(alpha))."""
+    Walter, Marschner, Li & Torrance 2007, Microfacet Models for Refraction through Rough Surfaces; Heitz 2014, Understanding the Masking-Shadowing Function in Microfacet-Based BRDFs, JCGT 3(2) (roughness = sqrt(alpha))."""
     doc = _doc(_ortho_at(theta), {"m": {"type": "metallic_roughness", "base_color": [1, 1, 1],
                                         "metallic": 1.0, "roughness": math.sqrt(alpha)}},
                [_plane("m")], spp=4096)
@@ -441,7 +441,7 @@ def test_strong_furnace_metallic_roughness_white_metal(alpha, theta):
 def test_rendered_fresnel_of_glass(theta, expected):
     """A glass surface (n = 1.5) over a black absorber, furnace of radiance 1 above:
     the pixel is R(theta) at 0 deg, 45 deg and Brewster's angle (Born & Wolf; Hecht;
-    validation-references 4a)."""
+    Born & Wolf, Principles of Optics, Fresnel formulae; Hecht, Optics)."""
     doc = _doc(_ortho_at(theta), {"g": {"type": "glass", "ior": 1.5}},
                [_plane("g"), _plane(None, z=-0.01)], spp=16384)
     mean, se = _render(doc)
@@ -452,7 +452,7 @@ def test_rendered_fresnel_of_glass(theta, expected):
 def test_rendered_slab_transmittance():
     """Glass slab (n = 1.5) between a camera and an emitter of radiance 1 at normal
     incidence: the pixel is (1 - R)/(1 + R) = 0.923077 (incoherent multiple
-    reflections; validation-references 4a)."""
+    reflections; Born & Wolf, Principles of Optics, Fresnel formulae; Hecht, Optics)."""
     cam = {"projection": "orthographic", "position": [0, 0, 1], "look_at": [0, 0, 0],
            "view_height": 0.01}
     emitter = _plane(None, z=-0.5)
@@ -467,7 +467,7 @@ def test_rendered_slab_transmittance():
 @pytest.mark.parametrize("name", sorted(R0_TABLE))
 def test_rendered_metal_presets_show_r0(name):
     """A smooth preset conductor seen at normal incidence in a furnace of radiance 1
-    shows R0 per channel (validation-references 4c)."""
+    shows R0 per channel (Johnson & Christy, Phys. Rev. B 6, 4370 (1972); Rakić, Appl. Opt. 34, 4755 (1995))."""
     doc = _doc(_ortho_at(0.0), {"m": {"type": "metal", "preset": name}}, [_plane("m")], spp=4)
     mean, se = _render(doc)
     np.testing.assert_allclose(mean, R0_TABLE[name], atol=6e-7)

@@ -2,7 +2,7 @@
 
 Every expected value is computed from a published formula (the source is
 named on each case in refrender/validation.py and in
-shared validation-references); each measurement must lie within 4 standard
+the published sources named per case); each measurement must lie within 4 standard
 errors of it, with the standard error itself at most 1 % of the value.
 """
 import itertools
@@ -41,7 +41,8 @@ def check(case, strategy="mis", light_sampling="solid_angle", spp=None):
     return value, se
 
 
-# Tabulated values from validation-references (sections in brackets) are also
+# Tabulated values ([1a]-[1d]: Howell, A Catalog of Radiation Heat Transfer Configuration
+# Factors, and Siegel & Howell, Thermal Radiation Heat Transfer; [2a]: Goral et al. 1984) are also
 # checked against the builders' formulas, so a typo in a formula cannot hide.
 @pytest.mark.parametrize("builder,args,table", [
     (V.disk_case, (1.0, 1.0, 0.0), 0.500000),          # [1a]
@@ -106,13 +107,13 @@ def test_delta_lights(case, strategy):
 
 
 def test_point_light_tabulated_irradiance():
-    """validation-references 7: I = 7.95775 W/sr (100 W isotropic), d = 3, 30 deg -> L_o 0.194993 at rho 0.8."""
+    """inverse-square and cosine laws, common practice: I = 7.95775 W/sr (100 W isotropic), d = 3, 30 deg -> L_o 0.194993 at rho 0.8."""
     case = V.point_case(100.0 / (4 * 3.141592653589793), 3.0, 30.0)
     assert case.expected / V.RHO * 0.8 == pytest.approx(0.194993, rel=1e-5)
 
 
 def test_point_light_equals_sphere_of_same_power():
-    """validation-references 7 / 1c: a Lambertian sphere (r, L) and a point light of
+    """inverse-square and cosine laws, common practice / 1c: a Lambertian sphere (r, L) and a point light of
     intensity pi r^2 L give the same irradiance to a receiver that sees all of it."""
     sphere = V.sphere_case(0.5, 2.0, 30.0, spp=1024)
     point = V.point_case(3.141592653589793 * 0.25 * V.L_EMIT, 2.0, 30.0)
@@ -139,7 +140,7 @@ def test_closed_enclosure(albedo, max_bounces, strategy, light_sampling):
 
 
 @pytest.mark.parametrize("builder,expected", [
-    # validation-references 2a tables: L/Le
+    # closed-enclosure radiosity: Goral, Torrance, Greenberg & Battaile 1984; Siegel & Howell, Thermal Radiation Heat Transfer tables: L/Le
     (lambda: V.enclosure_case(0.5, 1.0), 2.0), (lambda: V.enclosure_case(0.9, 1.0), 10.0),
     (lambda: V.enclosure_case(0.8, 1.0, 5), 3.68928), (lambda: V.enclosure_case(0.8, 1.0, 10), 4.57050),
     (lambda: V.enclosure_case(0.5, 1.0, 3), 1.87500),

@@ -2,7 +2,7 @@
 
 Every sampler of the renderer is registered once in
 refrender/sampling/registry.py and goes through the same three tests
-(validation-references 5d, common practice):
+(Pearson's chi-square with expected counts >= 5, common practice, common practice):
 
 1. normalisation: the pdf function integrates to 1 over its domain
    (Monte Carlo over the support cap with uniform directions; tolerance
@@ -131,14 +131,14 @@ def test_chi_square(case):
                                   "sphere solid_angle", "environment image", "diffuse BSDF"])
 def test_broken_sampler_fails_the_battery(name):
     """Testing the test: u1 -> u1**1.1 with the pdf unchanged must be rejected
-    (validation-references 5c reports p ~ 1e-299 for the triangle)."""
+    (Arvo 1995, Stratified Sampling of Spherical Triangles, SIGGRAPH '95 reports p ~ 1e-299 for the triangle)."""
     case = next(c for c in CASES if c.name == name)
     p, _ = chi2_pvalue(case, distort=1.1)
     assert p < ALPHA_SIDAK
 
 
 def test_chi_square_rejects_a_wrong_pdf():
-    """The same samples judged against another pdf (validation-references 5d: cosine samples
+    """The same samples judged against another pdf (Pearson's chi-square with expected counts >= 5, common practice: cosine samples
     against the uniform hemisphere) are rejected."""
     diffuse = next(c for c in CASES if c.name == "diffuse BSDF")
     wrong = R.SamplerCase("wrong", diffuse.sample_fn,
@@ -148,7 +148,7 @@ def test_chi_square_rejects_a_wrong_pdf():
     assert p < ALPHA_SIDAK
 
 
-# --- solid angles against the published table (validation-references 5b) -----------------
+# --- solid angles against the published table (Ureña, Fajardo & King 2013, An Area-Preserving Parametrization for Spherical Rectangles; van Oosterom & Strackee 1983, IEEE Trans. Biomed. Eng. 30(2)) -----------------
 
 def _tri_g(a, b, c):
     a, b, c = (np.asarray(v, float) for v in (a, b, c))
@@ -162,7 +162,7 @@ def _tri_g(a, b, c):
     (((0.2, 0.1, 1), (3, 0, 1), (0, 4, 1)), 0.810470),
 ])
 def test_triangle_solid_angle_table(verts, omega):
-    """van Oosterom & Strackee 1983 values tabulated in validation-references 5b."""
+    """van Oosterom & Strackee 1983 values tabulated in Ureña, Fajardo & King 2013, An Area-Preserving Parametrization for Spherical Rectangles; van Oosterom & Strackee 1983, IEEE Trans. Biomed. Eng. 30(2)."""
     from refrender.sampling.lights import _tri_setup
     res = _tri_setup(_tri_g(*verts), 0.0, 0.0, 0.0)
     assert res[0] and res[1] == pytest.approx(omega, rel=5e-6)
@@ -175,7 +175,7 @@ def test_triangle_solid_angle_table(verts, omega):
     ((1, 2, 1, 3), 1.0, 0.116763),
 ])
 def test_rectangle_solid_angle_table(rect, c, omega):
-    """Urena et al. 2013 spherical excess against validation-references 5b."""
+    """Urena et al. 2013 spherical excess against Ureña, Fajardo & King 2013, An Area-Preserving Parametrization for Spherical Rectangles; van Oosterom & Strackee 1983, IEEE Trans. Biomed. Eng. 30(2)."""
     from refrender.sampling.lights import _rect_setup
     x1, x2, y1, y2 = rect
     g = np.array([x1, y1, c, x2 - x1, 0, 0, 0, y2 - y1, 0], float)
@@ -425,7 +425,7 @@ def test_environment_map_irradiance_all_strategies(tmp_path, strategy, light_sam
 
 def test_constant_image_equals_uniform_environment(tmp_path):
     """A constant map is a uniform environment: the furnace sphere shows its albedo
-    (validation-references 3a)."""
+    (diffuse white furnace, common practice)."""
     import refrender
     objects = [{"shape": "sphere", "center": [0, 0, 0], "radius": 1.0, "material": "m"}]
     cam = {"projection": "orthographic", "position": [0, 0, 3], "look_at": [0, 0, 0],

@@ -1,5 +1,5 @@
 """Textures: filtering and wrap modes against scipy.ndimage, sRGB decoding
-against IEC 61966-2-1 (validation-references 6a), default parameterisations,
+against IEC 61966-2-1 (IEC 61966-2-1:1999), default parameterisations,
 mesh UVs, and rendered furnace checks of colour and roughness textures."""
 import math
 
@@ -101,7 +101,7 @@ def _load(doc, base=None):
 
 
 def test_png_texture_is_decoded_from_srgb(tmp_path):
-    """8-bit 188 -> 0.502886 and 128 -> 0.215861 (IEC 61966-2-1; validation-references 6a)."""
+    """8-bit 188 -> 0.502886 and 128 -> 0.215861 (IEC 61966-2-1; IEC 61966-2-1:1999)."""
     import imageio.v3 as iio
     img = np.array([[[188, 128, 0], [255, 188, 128]]], dtype=np.uint8)
     iio.imwrite(tmp_path / "t.png", img)
@@ -131,7 +131,7 @@ def _render(doc, base=None, **kw):
 @pytest.mark.parametrize("strategy", ["mis", "bsdf"])
 def test_rendered_checker_albedo(strategy):
     """A flat diffuse square under a uniform environment of radiance 1 shows its albedo
-    (validation-references 3a); with a 2 x 2 checker every pixel shows its square's colour."""
+    (diffuse white furnace, common practice); with a 2 x 2 checker every pixel shows its square's colour."""
     cols = [[0.2, 0.4, 0.6], [0.9, 0.5, 0.1]]
     doc = _scene({"m": {"type": "lambertian", "albedo": {"checker": cols, "scale": [2, 2]}}}, [SQUARE])
     mean, se = _render(doc, strategy=strategy)
@@ -165,7 +165,7 @@ def test_rendered_mesh_uvs_and_image_texture(tmp_path):
 
 def test_rendered_roughness_texture():
     """A checker of GGX alpha 0.1 / 1.0 on a unit-Fresnel rough conductor, seen at normal
-    incidence in the furnace: each square shows E(o) of its alpha (validation-references 3b)."""
+    incidence in the furnace: each square shows E(o) of its alpha (Walter, Marschner, Li & Torrance 2007, Microfacet Models for Refraction through Rough Surfaces; Heitz 2014, Understanding the Masking-Shadowing Function in Microfacet-Based BRDFs, JCGT 3(2))."""
     doc = _scene({"m": {"type": "metal", "f0": [1, 1, 1],
                         "ggx_alpha": {"checker": [[0.1] * 3, [1.0] * 3], "scale": [2, 2]}}}, [SQUARE],
                  spp=4096, view=0.02)

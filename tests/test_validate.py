@@ -18,7 +18,7 @@ from refrender.cli.main import main
     (1e6, 1e6, 1, 0.249999716),
 ])
 def test_perpendicular_rectangle_formula_matches_table(a, b, c, table):
-    """validation-references 1d (Howell's catalog B-8 at 90 degrees)."""
+    """Howell's catalog entry B-8 (Hamilton & Morgan 1952), 90° case (Howell's catalog B-8 at 90 degrees)."""
     F = V.perpendicular_rectangle_case(a, b, c).expected / (V.RHO * V.L_EMIT)
     assert F == pytest.approx(table, rel=5e-6)
 
@@ -28,7 +28,7 @@ def test_perpendicular_rectangle_formula_matches_table(a, b, c, table):
     (1, 4 * math.pi, 0.99, 0.05, 5.29625), (0.5, 10.0, 0.95, 0.01, 16.1773),
 ])
 def test_integrating_sphere_formula_matches_table(R, power, rho, f, L):
-    """validation-references 2b (Goebel 1967; point source at the centre)."""
+    """Goebel, Generalized Integrating-Sphere Theory, Appl. Opt. 1967 (Goebel 1967; point source at the centre)."""
     assert V.integrating_sphere_case(R, power, rho, f).expected == pytest.approx(L, rel=5e-6)
 
 

@@ -2,7 +2,7 @@
 
 Source data, as transcribed in the public-domain refractiveindex.info
 database (files ``main/<metal>/nk/Johnson.yml`` and ``main/Al/nk/Rakic.yml``)
-and listed in the project's validation reference sheet (section 4c):
+and as published (Johnson & Christy 1972; Rakić 1995):
 
 * gold, silver, copper: P. B. Johnson and R. W. Christy, "Optical constants of
   the noble metals", Phys. Rev. B 6, 4370-4379 (1972);

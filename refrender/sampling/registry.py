@@ -244,8 +244,8 @@ def registry():
         cases.append(emitter_case(f"sphere {label}", SPHERE, sphere, 4 * math.pi, mode, x, None))
     cases.append(sphere_area_case("sphere area (by normal)", [0.3, 0.2, 1.6], 1.0))
     rect = _rect([-0.5, -0.3, 1.0], [0.0, 1.2, 0.0], [1.5, 0.0, 0.0])
-    tri = _tri([0.2, 0.1, 1.0], [3.0, 0.0, 1.0], [0.0, 4.0, 1.0])       # validation-references 5b
-    tri2 = _tri([1.0, -1.0, 2.0], [2.0, 1.0, 2.5], [-1.0, 0.5, 1.5])    # validation-references 5b
+    tri = _tri([0.2, 0.1, 1.0], [3.0, 0.0, 1.0], [0.0, 4.0, 1.0])       # Ureña, Fajardo & King 2013, An Area-Preserving Parametrization for Spherical Rectangles; van Oosterom & Strackee 1983, IEEE Trans. Biomed. Eng. 30(2)
+    tri2 = _tri([1.0, -1.0, 2.0], [2.0, 1.0, 2.5], [-1.0, 0.5, 1.5])    # Ureña, Fajardo & King 2013, An Area-Preserving Parametrization for Spherical Rectangles; van Oosterom & Strackee 1983, IEEE Trans. Biomed. Eng. 30(2)
     disk = _disk([0.4, 0.0, 1.0], [0.2, 0.1, -1.0], 0.8)
     for label, mode in modes:
         cases.append(emitter_case(f"rectangle {label}", RECTANGLE, rect[0], rect[1], mode, x, rect[2]))
