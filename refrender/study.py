@@ -642,7 +642,8 @@ def main(argv=None) -> int:
             n = len(configs) * len(kw.get("seeds", [0])) * len(
                 kw.get("schedule") or default_schedule(kw.get("max_spp", 256)))
             bar = tqdm(total=n, unit="snapshot", file=sys.stderr)
-        rows = run(scene, configs, allow_other_scene=args.allow_other_scene, progress=(lambda *a: bar.update(1)) if bar else None, **kw)
+        rows = run(scene, configs, allow_other_scene=args.allow_other_scene,
+                   progress=(lambda *a: bar.update(1)) if bar else None, **kw)
         if bar:
             bar.close()
         summary = summarise(rows)

@@ -186,3 +186,23 @@ def test_parse_config():
     assert study._parse_config("rr_start=2") == {"rr_start": 2}
     with pytest.raises(study.StudyError, match="--config"):
         study._parse_config("foo=1")
+
+
+def test_reference_of_another_scene_is_refused(scene, tmp_path):
+    """A --reference EXR whose scene_sha256 is not the studied scene's: one-line
+    error (exit 2 from the command line); allow_other_scene accepts it."""
+    import numpy as np
+
+    from refrender.errors import RefrenderError
+    from refrender.io import write_exr
+    ref = tmp_path / "other.exr"
+    img = np.full((18, 24, 3), 0.5)
+    write_exr(ref, img, np.full_like(img, 1e-4), {"scene_sha256": "f" * 64})
+    with pytest.raises(RefrenderError, match="scene_sha256 differs.*--allow-other-scene"):
+        study.run(scene, [{"name": "a"}], [2], reference=str(ref))
+    rows = study.run(scene, [{"name": "a"}], [2], reference=str(ref), allow_other_scene=True)
+    assert len(rows) == 1
+    sc = tmp_path / "s.json"
+    sc.write_text(json.dumps(SCENE))
+    assert study.main([str(sc), "--schedule", "2", "--reference", str(ref), "--quiet",
+                       "--out", str(tmp_path / "o")]) == 2
