@@ -1,5 +1,5 @@
 """The diff tool (refrender.compare, tools/diff.py): metrics against
-scikit-image, significance against the reference's noise, diagnosis of
+scikit-image, significance against both frames' noise, diagnosis of
 injected faults, inputs, outputs and CI gating exit codes.
 
 Renders are tiny (80 x 60 demo room, 64 x 48 plane) with fixed seeds.

@@ -265,7 +265,7 @@ def test_faulty_case_fails_and_exit_status(run_dir, frames, capsys):
     assert by["ok"]["status"] == "pass" and by["by_command"]["status"] == "pass"
     bad = by["scaled_emission"]
     assert bad["status"] == "fail" and bad["failed"][0].startswith("bias_z>4")
-    assert bad["verdict"].startswith("significant bias") and bad["metrics"]["relative_bias"] > 0.3
+    assert bad["verdict"].startswith("significant difference") and bad["metrics"]["relative_bias"] > 0.3
     assert any(x["fault"] == "scale" for x in bad["diagnoses"])
     assert by["crashing_renderer"]["status"] == "error"
     assert by["crashing_renderer"]["message"] == "frame command exited with status 1: renderer crashed"
@@ -299,7 +299,7 @@ def test_junit_xml_counts(run_dir):
     assert list(cases) == ["ok", "scaled_emission", "by_command", "crashing_renderer", "missing_frame"]
     assert all(tc.get("classname") == "refrender.suite.t" and float(tc.get("time")) >= 0 for tc in cases.values())
     fail = cases["scaled_emission"].find("failure")
-    assert fail is not None and "bias_z>4" in fail.get("message") and "significant bias" in fail.get("message")
+    assert fail is not None and "bias_z>4" in fail.get("message") and "significant difference" in fail.get("message")
     assert "scale" in fail.text
     assert cases["crashing_renderer"].find("error").get("message").startswith("frame command exited")
     assert cases["ok"].find("failure") is None and cases["ok"].find("error") is None
@@ -361,7 +361,7 @@ def test_html_report_in_headless_browser(run_dir, tmp_path):
     shown = re.findall(r'<tr class="row [a-z]+" data-case="([^"]+)">', out)
     assert shown == ["scaled_emission"] and "1 of 5 shown" in out
     case_page = dom((d / "report" / links[1]).as_uri())
-    assert 'id="verdict"' in case_page and "significant bias" in case_page
+    assert 'id="verdict"' in case_page and "significant difference" in case_page
 
 
 def test_demo_suite_validates_and_a_fault_is_caught(tmp_path, capsys):

@@ -16,7 +16,7 @@ from .metrics import METRICS
 def parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="diff.py", description="Compare a test frame with a refrender reference, pixel by pixel: "
-        "metrics, significance against the reference's noise, diagnosis of classic faults.")
+        "metrics, significance against both frames' noise, diagnosis of classic faults.")
     p.add_argument("reference", help="reference image (refrender EXR with its variance layer, or any linear image)")
     p.add_argument("test", help="test frame: EXR, PFM, HDR, float TIFF, NPY, or PNG/JPEG (assumed sRGB)")
     p.add_argument("--layer", help="test EXR: compare the layer LAYER (channels LAYER.R/G/B)")
