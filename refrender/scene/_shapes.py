@@ -4,8 +4,10 @@ All lengths are in scene units; every returned shape is in world space.
 """
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import io
+import logging
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -224,6 +226,23 @@ def _mesh_uvs(mesh, count: int) -> np.ndarray | None:
     return uv
 
 
+@contextlib.contextmanager
+def _quiet_trimesh():
+    """trimesh logs warnings (to stderr through logging's last-resort handler) and
+    its compiled helpers may print: both are held back while a mesh is read; a
+    failure becomes our one-line SceneError."""
+    from ..io.quiet import foreign_stderr
+    logger = logging.getLogger("trimesh")
+    level = logger.level
+    logger.setLevel(logging.CRITICAL + 1)
+    try:
+        with foreign_stderr(), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            yield
+    finally:
+        logger.setLevel(level)
+
+
 def _read_mesh(resolved: Path, data: bytes, path: tuple):
     """Vertex positions (n, 3) float64, faces (m, 3) int64 and texture coordinates
     ((n, 2) float64 or None) of a mesh file's bytes."""
@@ -231,7 +250,8 @@ def _read_mesh(resolved: Path, data: bytes, path: tuple):
 
     file_type = resolved.suffix.lstrip(".").lower()
     try:
-        mesh = trimesh.load(io.BytesIO(data), file_type=file_type, force="mesh", process=False)
+        with _quiet_trimesh():
+            mesh = trimesh.load(io.BytesIO(data), file_type=file_type, force="mesh", process=False)
         vertices = np.asarray(mesh.vertices, dtype=np.float64).reshape(-1, 3)
         faces = np.asarray(mesh.faces, dtype=np.int64).reshape(-1, 3)
         uvs = _mesh_uvs(mesh, len(vertices))
