@@ -153,7 +153,7 @@ def test_ctrl_c_of_the_whole_process_group_checkpoints_and_exits_130(tmp_path):
     out = tmp_path / "o.exr"
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parent.parent))
     proc = subprocess.Popen([sys.executable, "-m", "refrender", "render", str(path), "-o", str(out),
-                             "--spp", "1000000", "--task-spp", "4", "--local-workers", "1",
+                             "--spp", "40000", "--task-spp", "20", "--local-workers", "1",
                              "--checkpoint-every", "0.1s", "--quiet"],
                             env=env, start_new_session=True, stderr=subprocess.PIPE, text=True)
     try:

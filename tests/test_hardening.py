@@ -323,3 +323,16 @@ def test_disk_check_counts_the_temporary_copy_of_a_checkpoint(tmp_path, monkeypa
         check_disk(tmp_path, 512, 512)
     monkeypatch.setattr(shutil, "disk_usage", lambda p: usage._replace(free=need))
     check_disk(tmp_path, 512, 512)
+
+
+def test_empty_preview_name_is_refused_before_the_render(saved, tmp_path, capsys):
+    """Found by the long fuzz run: --preview '' skipped the option check, rendered, rewrote
+    OUT.state and then failed writing the preview ('.'): a failing command modified a good state."""
+    d, scene = saved
+    out = tmp_path / "o.exr"
+    (tmp_path / "o.state").write_bytes((d / "a.state").read_bytes())
+    before = (tmp_path / "o.state").read_bytes()
+    assert main(["render", str(scene), "-o", str(out), "--spp", "3", "--quiet", "--preview", ""]) == 2
+    err = capsys.readouterr().err
+    assert err.splitlines() == ["refrender: error: --preview: expected a .png file name, got '.'"]
+    assert (tmp_path / "o.state").read_bytes() == before and not out.exists()

@@ -32,7 +32,7 @@ def run(args) -> int:
     _check_output(out, ".exr", "--output")
     if state_path_for(out).is_dir():
         raise RenderError(f"--output: {str(state_path_for(out))!r} (the state file) is a folder")
-    if args.preview:
+    if args.preview is not None:        # an empty name too: it would fail only after the render
         _check_output(Path(args.preview), ".png", "--preview")
     if not math.isfinite(args.exposure):
         raise RenderError(f"--exposure: must be finite, got {args.exposure}")

@@ -205,7 +205,7 @@ def _run(args) -> int:
     state = state_path_for(out)
     if state.is_dir():
         raise RenderError(f"--output: {str(state)!r} (the state file) is a folder")
-    if args.preview:
+    if args.preview is not None:        # an empty name too: it would fail only after the render
         _check_output(Path(args.preview), ".png", "--preview")
     if not math.isfinite(args.exposure):
         raise RenderError(f"--exposure: must be finite, got {args.exposure}")
