@@ -3,7 +3,8 @@
 numba's on-disk cache keys a function on the source of *its own* file only, so
 editing a helper in another module can leave a stale cached caller.  We
 therefore point ``NUMBA_CACHE_DIR`` at a folder keyed on a hash of every
-source file that may define kernels (KERNEL_PACKAGES and this file): any edit
+source file that may define kernels or constants they read (KERNEL_PACKAGES,
+this file and limits.py): any edit
 to any kernel starts a fresh cache.  Kernels must live in those folders.
 Set ``NUMBA_CACHE_DIR`` yourself to override.
 """
@@ -22,7 +23,7 @@ KERNEL_PACKAGES = ("geometry", "sampling", "materials", "integrator")
 
 def _source_hash() -> str:
     h = hashlib.sha256()
-    files = [_PKG / "_jit.py"] + [p for d in KERNEL_PACKAGES for p in (_PKG / d).rglob("*.py")]
+    files = [_PKG / "_jit.py", _PKG / "limits.py"] + [p for d in KERNEL_PACKAGES for p in (_PKG / d).rglob("*.py")]
     for path in sorted(files):
         h.update(path.relative_to(_PKG).as_posix().encode())
         h.update(path.read_bytes())

@@ -92,11 +92,33 @@ def local_cluster(n_workers: int, *, threads_per_worker: int = 1):
     if n_workers < 1:
         raise RenderError(f"--local-workers: must be >= 1, got {n_workers}")
     tmp = tempfile.mkdtemp(prefix="refrender-dask-")
-    with dask.config.set({"distributed.worker.multiprocessing-method": "spawn",
-                          "temporary-directory": tmp}):
-        return LocalCluster(n_workers=n_workers, threads_per_worker=threads_per_worker,
-                            processes=True, host="127.0.0.1", scheduler_port=0,
-                            dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR)
+    # Ctrl-C in a terminal sends SIGINT to the whole process group, workers
+    # included: they are started with SIGINT ignored (the disposition survives
+    # exec, and Python then installs no KeyboardInterrupt handler), so only
+    # the client reacts, checkpoints what finished and shuts the cluster down.
+    previous = _ignore_sigint()
+    try:
+        with dask.config.set({"distributed.worker.multiprocessing-method": "spawn",
+                              "temporary-directory": tmp}):
+            return LocalCluster(n_workers=n_workers, threads_per_worker=threads_per_worker,
+                                processes=True, host="127.0.0.1", scheduler_port=0,
+                                dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR)
+    finally:
+        _restore_sigint(previous)
+
+
+def _ignore_sigint():
+    import signal
+    import threading
+    if threading.current_thread() is not threading.main_thread():
+        return None
+    return signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _restore_sigint(previous) -> None:
+    import signal
+    if previous is not None:
+        signal.signal(signal.SIGINT, previous)
 
 
 def connect(address: str):
@@ -183,7 +205,13 @@ def render_farm(scene, client, *, spp=None, seed=None, first_sample: int = 0,
             if progress is not None:
                 progress(len(parts), len(ranges), rays, time.perf_counter() - t0)
             if on_task is not None:
-                on_task(_merge_ordered(done, parts))
+                # a checkpoint: unfinished until the last range is merged, so that
+                # the same command without --resume refuses to start over
+                partial = _merge_ordered(done, parts)
+                partial.run = dict(partial.run, stop_reason="checkpoint", complete=False,
+                                   budget={"spp": int(st["spp"])},
+                                   farm={"task_spp": task_spp, "workers": n_workers})
+                on_task(partial)
             stop = should_stop() if should_stop is not None else None
             if stop:
                 for f in futures:

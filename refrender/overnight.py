@@ -184,8 +184,16 @@ def available_memory() -> int | None:
         return None
 
 
-def _gib(n: float) -> str:
-    return f"{n / 2**30:.2f} GiB" if n < 2**40 else f"{n / 2**40:.2f} TiB"
+def format_bytes(n: float) -> str:
+    """A size in the binary unit that fits it: 512 B, 3.5 KiB, 8.00 MiB, 1.20 GiB, 2.00 TiB."""
+    n = float(n)
+    for unit, scale in (("TiB", 2 ** 40), ("GiB", 2 ** 30), ("MiB", 2 ** 20), ("KiB", 2 ** 10)):
+        if n >= scale:
+            return f"{n / scale:.3g} {unit}"
+    return f"{int(n)} B"
+
+
+_gib = format_bytes   # (the old name)
 
 
 def check_memory(h: int, w: int) -> None:
@@ -193,32 +201,58 @@ def check_memory(h: int, w: int) -> None:
     need = h * w * RENDER_BYTES_PER_PIXEL
     avail = available_memory()
     if avail is not None and need > avail:
-        raise RenderError(f"film: {w}x{h} needs about {_gib(need)} of memory, "
-                          f"only {_gib(avail)} available")
+        raise RenderError(f"film: {w}x{h} needs about {format_bytes(need)} of memory, "
+                          f"only {format_bytes(avail)} available")
 
 
-def output_bytes(h: int, w: int, preview: bool = False) -> int:
-    """Upper bound of the bytes that writing the EXR and state file needs.
+#: bytes of headers and metadata per file, an upper bound (JSON metadata, zip and EXR headers)
+FILE_OVERHEAD = 2 ** 16
 
-    Each file is written beside the old one before the rename, so the bound
-    is the full size of the new files (EXR counted uncompressed), plus 1 MiB
-    of headers and, with a preview, 4 bytes per pixel.
-    """
+
+def file_bytes(h: int, w: int, preview: bool = False) -> dict:
+    """Upper bounds of the bytes of each output file: ``state``, ``exr`` (uncompressed), ``preview``."""
     n = h * w
-    return n * (STATE_BYTES_PER_PIXEL + EXR_BYTES_PER_PIXEL + (4 if preview else 0)) + 2**20
+    sizes = {"state": n * STATE_BYTES_PER_PIXEL + FILE_OVERHEAD, "exr": n * EXR_BYTES_PER_PIXEL + FILE_OVERHEAD}
+    if preview:
+        sizes["preview"] = 4 * n + FILE_OVERHEAD
+    return sizes
 
 
-def check_disk(folder, h: int, w: int, what: str = "--output", preview: bool = False) -> None:
-    """Refuse a render whose outputs cannot fit in the free space of ``folder``."""
+def output_bytes(h: int, w: int, preview: bool = False, existing: int = 0) -> int:
+    """Free bytes that writing (and re-writing at every checkpoint) the outputs needs.
+
+    A checkpoint writes each file under a temporary name beside the old one
+    and then renames it (state first, then EXR, then preview), so at its peak
+    the folder holds every output plus a second copy of the largest one.
+    ``existing``: bytes of the outputs already on disk (they are replaced, so
+    their space is reused).
+    """
+    sizes = file_bytes(h, w, preview)
+    return max(sum(sizes.values()) - existing, 0) + max(sizes.values())
+
+
+def check_disk(folder, h: int, w: int, what: str = "--output", preview: bool = False,
+               existing=()) -> None:
+    """Refuse a render whose outputs and checkpoints cannot fit in the free space of ``folder``.
+
+    ``existing``: paths of outputs that may already exist (their sizes are reused).
+    """
     folder = Path(folder) if str(folder) else Path(".")
-    need = output_bytes(h, w, preview)
+    have = 0
+    for p in existing:
+        try:
+            have += Path(p).stat().st_size
+        except (OSError, ValueError):
+            pass
+    need = output_bytes(h, w, preview, existing=have)
     try:
         free = shutil.disk_usage(folder).free
     except OSError:
         return
     if need > free:
-        raise RenderError(f"{what}: the state file and EXR of a {w}x{h} render need about "
-                          f"{_gib(need)}, only {_gib(free)} free in {str(folder)!r}")
+        raise RenderError(f"{what}: the state file and EXR of a {w}x{h} render and a checkpoint's "
+                          f"temporary copy need about {format_bytes(need)}, only {format_bytes(free)} "
+                          f"free in {str(folder)!r}")
 
 
 def check_fits(h: int, w: int, folder=None, *, preview: bool = False) -> None:

@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import ImageError, RenderError
+from .limits import SAMPLE_MAX, SPP_MAX
 
 #: metadata keys that must agree for two results to be merged
 ESTIMATOR_KEYS = ("scene_sha256", "seed", "strategy", "light_sampling", "max_bounces",
@@ -186,7 +187,9 @@ class Result:
         else is a one-line ImageError naming the file.
         """
         from .io import load_state
+        from .io.metadata import STATE_REQUIRED, check_metadata
         arrays, meta = load_state(path)
+        check_metadata(meta, path, STATE_REQUIRED)
         try:
             est = {k: meta[k] for k in ESTIMATOR_KEYS}
             est.update({k: meta[k] for k in OPTIONAL_KEYS + OPTIONAL_META_KEYS if k in meta})
@@ -227,6 +230,8 @@ def _state_problem(res: "Result"):
     if not (isinstance(win, list) and len(win) == 4 and all(_is_int(v) for v in win)
             and 0 <= win[0] < win[2] and 0 <= win[1] < win[3]):
         return f"window {win!r}"
+    if win[2] > res.meta["width"] or win[3] > res.meta["height"]:
+        return f"window {win!r} exceeds the film {res.meta['width']} x {res.meta['height']}"
     h, w = win[3] - win[1], win[2] - win[0]
     for name, arr, shape, kind in (("sum", res.sum, (h, w, 3), "f"), ("sum_sq", res.sum_sq, (h, w, 3), "f"),
                                    ("count", res.count, (h, w), "i")):
@@ -240,6 +245,8 @@ def _state_problem(res: "Result"):
     if sorted(ranges) != ranges or _ranges_overlap(ranges):
         return f"sample_ranges {ranges!r} are not sorted and disjoint"
     spp = res.spp
+    if spp > SPP_MAX:
+        return f"{spp} samples per pixel, more than {SPP_MAX} (2**40)"
     if res.count.size and (int(res.count.min()) < 0 or int(res.count.max()) > spp):
         return f"sample counts outside [0, {spp}]"
     slots = res.meta.get("layer_slots") or []
@@ -313,6 +320,10 @@ def merge(results, names=None) -> Result:
             raise RenderError(f"merge: {who} overlap in samples [{a1}, {min(b0, b1)}) "
                               "(they would be counted twice)")
     ranges = [r for r, _ in owners]
+    total = sum(b - a for a, b in ranges)
+    if total > SPP_MAX:
+        raise RenderError(f"merge: {total} samples per pixel in all, more than {SPP_MAX} (2**40, the "
+                          "most the float64 sums of squares can carry, see README 'Limits')")
     order = sorted(range(len(results)), key=lambda i: min(results[i].sample_ranges))
     s = np.zeros_like(first.sum)
     sq = np.zeros_like(first.sum_sq)
@@ -362,6 +373,7 @@ def chromaticities_of(space):
 
 def warn_nonfinite(count: int) -> None:
     if count:
-        warnings.warn(f"{count} non-finite samples were excluded from the estimate; "
-                      "any is a bug in refrender, please report the scene", RuntimeWarning,
+        warnings.warn(f"{count} samples were not finite or beyond {SAMPLE_MAX:.3g} (the largest "
+                      "sample value whose square the float64 sums can carry) and were excluded from "
+                      "the estimate; please report the scene", RuntimeWarning,
                       stacklevel=3)

@@ -122,3 +122,53 @@ def test_cli_farm_render_and_resume(tmp_path, scene):
     assert np.allclose(img.rgb(), local.mean.astype(np.float32), rtol=1e-6, atol=0)
     again = refrender.Result.from_state(tmp_path / "o.state")
     assert np.allclose(again.mean, local.mean, rtol=1e-12, atol=1e-300)
+
+
+def test_farm_checkpoints_are_unfinished_until_the_last_range(scene, client):
+    """Every on_task checkpoint but the final result says complete = False, stop
+    reason "checkpoint": after a SIGKILL the same command without --resume must
+    refuse to start over (README: an unfinished state is never overwritten)."""
+    seen = []
+    far = farm.render_farm(scene, client, spp=6, seed=2, task_spp=2,
+                           on_task=lambda partial: seen.append(dict(partial.run)))
+    assert len(seen) == 3
+    assert all(r["complete"] is False and r["stop_reason"] == "checkpoint" for r in seen)
+    assert far.run["complete"] is True and far.run["stop_reason"] == "spp"
+
+
+def test_ctrl_c_of_the_whole_process_group_checkpoints_and_exits_130(tmp_path):
+    """SIGINT to the process group (what a terminal's Ctrl-C does) reaches the
+    workers too: they ignore it, the client saves what finished, one line, 130."""
+    import subprocess
+    import sys
+    import time
+    doc = json.loads((SCENES / "reading_nook.json").read_text())
+    doc["film"] = {"width": 8, "height": 8}
+    doc.pop("render", None)
+    path = tmp_path / "s.json"
+    path.write_text(json.dumps(doc))
+    for mesh in (SCENES / "meshes").iterdir():
+        (tmp_path / "meshes").mkdir(exist_ok=True)
+        (tmp_path / "meshes" / mesh.name).write_bytes(mesh.read_bytes())
+    out = tmp_path / "o.exr"
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parent.parent))
+    proc = subprocess.Popen([sys.executable, "-m", "refrender", "render", str(path), "-o", str(out),
+                             "--spp", "40000", "--task-spp", "20", "--local-workers", "1",
+                             "--checkpoint-every", "0.1s", "--quiet"],
+                            env=env, start_new_session=True, stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 300
+        while not out.with_suffix(".state").exists() and time.monotonic() < deadline and proc.poll() is None:
+            time.sleep(0.1)
+        assert out.with_suffix(".state").exists(), "no checkpoint was written"
+        os.killpg(proc.pid, signal.SIGINT)
+        _, err = proc.communicate(timeout=120)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait()
+    assert proc.returncode == 130, err
+    assert len(err.splitlines()) == 1 and err.startswith("refrender: SIGINT: stopped after"), err
+    res = refrender.Result.from_state(out.with_suffix(".state"))
+    assert res.run["stop_reason"] == "SIGINT" and res.run["complete"] is False
+    assert not out.with_suffix(".lock").exists()

@@ -32,7 +32,7 @@ def run(args) -> int:
     _check_output(out, ".exr", "--output")
     if state_path_for(out).is_dir():
         raise RenderError(f"--output: {str(state_path_for(out))!r} (the state file) is a folder")
-    if args.preview:
+    if args.preview is not None:        # an empty name too: it would fail only after the render
         _check_output(Path(args.preview), ".png", "--preview")
     if not math.isfinite(args.exposure):
         raise RenderError(f"--exposure: must be finite, got {args.exposure}")
@@ -43,11 +43,14 @@ def run(args) -> int:
         if key in seen:
             raise RenderError(f"merge: {p} is given twice (its samples would be counted twice)")
         seen[key] = p
-    results = [Result.from_state(p) for p in paths]
-    merged = merge(results, names=[str(p) for p in paths])
-    x0, y0, x1, y1 = merged.window
-    check_disk(out.parent, y1 - y0, x1 - x0, preview=bool(args.preview))
-    merged.save(out, preview=args.preview, exposure=args.exposure)
+    from ..io.lock import OutputLock
+    with OutputLock(out):
+        results = [Result.from_state(p) for p in paths]
+        merged = merge(results, names=[str(p) for p in paths])
+        x0, y0, x1, y1 = merged.window
+        check_disk(out.parent, y1 - y0, x1 - x0, preview=bool(args.preview),
+                   existing=(out, state_path_for(out)))
+        merged.save(out, preview=args.preview, exposure=args.exposure)
     if not args.quiet:
         noise = merged.noise_summary()
         err = noise["rel_error_mean"]

@@ -193,6 +193,15 @@ def _settings(args, prev):
 
 
 def run(args) -> int:
+    """Own the output (OUT.lock, see refrender/io/lock.py) for the whole render."""
+    from ..io.lock import OutputLock
+    out = Path(args.output)
+    _check_output(out, ".exr", "--output")
+    with OutputLock(out):
+        return _run(args)
+
+
+def _run(args) -> int:
     from .. import render
     from ..io import state_path_for
     from ..overnight import EXIT_STATUS, StopOnSignal, check_disk, check_memory, format_duration
@@ -201,7 +210,7 @@ def run(args) -> int:
     state = state_path_for(out)
     if state.is_dir():
         raise RenderError(f"--output: {str(state)!r} (the state file) is a folder")
-    if args.preview:
+    if args.preview is not None:        # an empty name too: it would fail only after the render
         _check_output(Path(args.preview), ".png", "--preview")
     if not math.isfinite(args.exposure):
         raise RenderError(f"--exposure: must be finite, got {args.exposure}")
@@ -227,7 +236,8 @@ def run(args) -> int:
     x0, y0, x1, y1 = scene.film.window
     if prev is None:
         check_memory(y1 - y0, x1 - x0)
-    check_disk(out.parent, y1 - y0, x1 - x0, preview=bool(args.preview))
+    check_disk(out.parent, y1 - y0, x1 - x0, preview=bool(args.preview),
+               existing=[out, state] + ([Path(args.preview)] if args.preview else []))
     capped = budget["spp"] is not None or not uncapped
     progress = None  # noqa: F811 (replaced by a closure when a bar is shown)
     show_bar = not args.quiet and sys.stderr.isatty()

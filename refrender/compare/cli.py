@@ -9,12 +9,13 @@ import argparse
 import sys
 import warnings
 
+from ..cli.oneline import OneLineArgumentParser
 from ..errors import RefrenderError
 from .metrics import METRICS
 
 
 def parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(
+    p = OneLineArgumentParser(   # argument errors as one line, not the usage block
         prog="diff.py", description="Compare a test frame with a refrender reference, pixel by pixel: "
         "metrics, significance against both frames' noise, diagnosis of classic faults.")
     p.add_argument("reference", help="reference image (refrender EXR with its variance layer, or any linear image)")

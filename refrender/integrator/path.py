@@ -38,6 +38,7 @@ import numpy as np
 from numba import prange
 
 from .._jit import inline, kernel
+from ..limits import SAMPLE_MAX
 from ..geometry.intersect import SPHERE, is_planar, surface_point, surface_uv
 from ..geometry.intrinsics import cycles
 from ..geometry.traverse import closest_hit_fn as closest_hit, new_stack, occluded_fn as occluded
@@ -555,7 +556,9 @@ def render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
                     row_time[r, 0] += cycles() - p0
                     row_time[r, 1] += tc
                 rays += nr
-                if math.isfinite(vr) and math.isfinite(vg) and math.isfinite(vb):
+                # a non-finite sample, or one whose square could overflow the
+                # float64 sums (see refrender/limits.py), is excluded and counted
+                if abs(vr) <= SAMPLE_MAX and abs(vg) <= SAMPLE_MAX and abs(vb) <= SAMPLE_MAX:
                     acc_sum[r, c, 0] += vr
                     acc_sum[r, c, 1] += vg
                     acc_sum[r, c, 2] += vb

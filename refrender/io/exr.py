@@ -38,6 +38,8 @@ import numpy as np
 
 from refrender.errors import ImageError
 from refrender.io.atomic import atomic_path
+from refrender.io.metadata import check_metadata
+from refrender.io.quiet import Captured, foreign_stderr
 
 __all__ = ["ExrImage", "read_exr", "write_exr", "EXR_MAGIC", "METADATA_ATTRIBUTE"]
 
@@ -262,9 +264,11 @@ def read_exr(path: str | os.PathLike[str]) -> ExrImage:
     _check_magic(path)
     # On a damaged file the OpenEXR package prints a "Warning: ..." to stdout and
     # returns a File with no parts; capture the text so it becomes our error message.
+    # The C++ library prints its own messages on stderr: captured too (io/quiet.py).
     captured = io.StringIO()
+    foreign = Captured()
     try:
-        with contextlib.redirect_stdout(captured):
+        with foreign_stderr() as foreign, contextlib.redirect_stdout(captured):
             exr = OpenEXR.File(os.fspath(path), separate_channels=True)
             with exr:
                 if len(exr.parts) == 0:
@@ -272,8 +276,8 @@ def read_exr(path: str | os.PathLike[str]) -> ExrImage:
                 header = dict(exr.header())
                 raw = exr.channels()
                 channels = {name: np.asarray(ch.pixels) for name, ch in raw.items()}
-    except (ImageError, RuntimeError, ValueError, TypeError, KeyError) as exc:
-        reason = captured.getvalue().strip() or _first_line(exc)
+    except Exception as exc:  # noqa: BLE001 - the binding raises many types on damaged files
+        reason = captured.getvalue().strip() or foreign.line or _first_line(exc)
         reason = reason.splitlines()[0].removeprefix("Warning: ") if reason else "unreadable"
         raise ImageError(f"{path}: truncated or corrupted EXR ({reason})") from None
     if not channels:
@@ -294,4 +298,5 @@ def read_exr(path: str | os.PathLike[str]) -> ExrImage:
                              f"'{METADATA_ATTRIBUTE}' is not JSON)") from None
         if not isinstance(metadata, dict):
             raise ImageError(f"{path}: corrupted refrender metadata (not a JSON object)")
+        check_metadata(metadata, path)
     return ExrImage(channels=channels, header=header, metadata=metadata)

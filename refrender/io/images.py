@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
+from refrender.io.quiet import foreign_stderr
 from refrender.errors import ImageError
 from refrender.io.atomic import atomic_write, atomic_write_bytes
 from refrender.io.exr import read_exr
@@ -312,9 +313,14 @@ def read_image(path: str | os.PathLike[str]) -> np.ndarray:
     if path.is_dir():
         raise ImageError(f"{path}: is a directory, not an image")
     try:
-        return reader(path)
+        with foreign_stderr() as foreign:       # OpenCV, OpenEXR print their own messages
+            return reader(path)
+    except ImageError:
+        raise
     except OSError as exc:
         raise ImageError(f"{path}: cannot read: {exc.strerror or _first_line(exc)}") from None
+    except Exception as exc:  # noqa: BLE001 - the readers' libraries raise many types on damaged files
+        raise ImageError(f"{path}: cannot read: {foreign.line or _first_line(exc)}") from None
 
 
 # ----------------------------------------------------------------------------- writers

@@ -40,9 +40,22 @@ def fresnel_conductor(cos_i, n, k):
     eta = complex(n, k)
     eta2 = eta * eta
     w = cmath.sqrt(eta2 - s2)
-    rs = (c - w) / (c + w)
-    rp = (eta2 * c - w) / (eta2 * c + w)
-    return 0.5 * (abs(rs) ** 2 + abs(rp) ** 2)
+    return 0.5 * (_ratio2(c - w, c + w) + _ratio2(eta2 * c - w, eta2 * c + w))
+
+
+@inline
+def _ratio2(num, den):
+    """|num / den|^2 of a Fresnel amplitude; 1 where den = 0.
+
+    The denominators vanish only for eta = 0 (n = k = 0) at normal or grazing
+    incidence, where the amplitude's limit as eta -> 0 has modulus 1 (the
+    reflectance of the index-0 limit is 1 at every angle).  numba raises
+    ZeroDivisionError on a complex division by zero whatever its error model,
+    so the case is decided here.
+    """
+    if den == 0:
+        return 1.0
+    return abs(num / den) ** 2
 
 
 @inline

@@ -70,6 +70,8 @@ def load_texture(spec: dict, path: tuple, files, colour: bool) -> Texture:
     if colour and (lo < 0.0 or hi > 1.0):
         raise scene_error(where, f"a reflectance texture must lie in [0, 1], {resolved} spans "
                           f"[{lo:.4g}, {hi:.4g}]")
+    if not colour and hi > 1e30:
+        raise scene_error(where, f"a roughness texture must be <= 1e30, {resolved} has {hi:.4g}")
     if not colour and lo < 0.0:
         raise scene_error(where, f"a roughness texture must be >= 0, {resolved} has {lo:.4g}")
     if common["channel"] >= img.shape[2]:

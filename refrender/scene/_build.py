@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..limits import SCENE_NUMBER_MAX
 from ._shapes import FileLog, affine_matrix, build_shape
 from ._util import scene_error, show, unit, vec3
 from .model import (
@@ -25,6 +26,13 @@ MAX_PIXELS = 2 ** 28
 PARALLEL_TOLERANCE = 1e-6
 #: Largest deviation of R^T R from the identity accepted for camera.camera_to_world.
 ORTHONORMAL_TOLERANCE = 1e-4
+
+
+def _within_limit(values, path: tuple, what: str) -> None:
+    """A product of fields must stay within SCENE_NUMBER_MAX (refrender/limits.py)."""
+    if not np.all(np.abs(np.asarray(values, dtype=np.float64)) <= SCENE_NUMBER_MAX):
+        raise scene_error(path, f"{what} exceeds {SCENE_NUMBER_MAX:g} (refrender's limit for radiometric "
+                          "values, see README 'Limits')")
 
 
 # ----------------------------------------------------------------------------- camera
@@ -118,8 +126,9 @@ def build_camera(spec: dict) -> Camera:
                     sensor_height=sensor,
                     f_number=None if lens is None else float(lens["f_number"]),
                     focus_distance=1.0 if lens is None else float(lens["focus_distance"]))
-    if lens is not None and not math.isfinite(camera.lens_radius):
-        raise scene_error(("camera", "lens", "f_number"), "gives an aperture that is not finite")
+    if lens is not None and not camera.lens_radius <= SCENE_NUMBER_MAX:
+        raise scene_error(("camera", "lens", "f_number"), f"gives an aperture radius beyond "
+                          f"{SCENE_NUMBER_MAX:g} (refrender's limit for lengths)")
     return camera
 
 
@@ -226,6 +235,7 @@ def _metallic_roughness(spec: dict, path: tuple, files: FileLog) -> Material:
     base, base_tex = _colour(spec, "base_color", path, files, [1.0, 1.0, 1.0])
     rough, rough_tex = _scalar(spec, "roughness", path, files, 1.0)
     emissive = vec3(spec.get("emissive", [0.0, 0.0, 0.0])) * float(spec.get("emissive_strength", 1.0))
+    _within_limit(emissive, path + ("emissive_strength",), "emissive * emissive_strength")
     return Material(type="metallic_roughness", params={
         "base_color": base, "base_color_texture": base_tex, "metallic": float(spec.get("metallic", 1.0)),
         "roughness": rough, "roughness_texture": rough_tex, "emissive": emissive})
@@ -319,6 +329,11 @@ def _environment(spec: dict, path: tuple, files: FileLog | None) -> EnvironmentL
         raise scene_error(where, f"image has negative values (min {img.min():.3g}): {resolved}")
     scale = spec.get("scale", 1.0)
     scale = np.full(3, float(scale)) if isinstance(scale, (int, float)) else vec3(scale)
+    if float(img.max()) > SCENE_NUMBER_MAX:
+        raise scene_error(where, f"image values exceed {SCENE_NUMBER_MAX:g} (refrender's limit for "
+                          f"radiance): {resolved}")
+    with np.errstate(over="ignore"):
+        _within_limit(float(img.max()) * scale, path + ("scale",), "the image's largest value * scale")
     return EnvironmentLight(radiance=np.zeros(3), image=np.ascontiguousarray(img), scale=scale,
                             rotate_degrees=float(spec.get("rotate_degrees", 0.0)),
                             image_path=str(resolved))

@@ -67,8 +67,12 @@ def _is_vec3_list(items: list) -> bool:
 
 
 def _is_index_list(items: list) -> bool:
-    """Every item a list of 3 integers >= 0 (schema: triangles.indices items)."""
-    return all(type(v) is list and len(v) == 3 and all(type(x) is int and x >= 0 for x in v) for v in items)
+    """Every item a list of 3 integers in [0, 2^31 - 1] (schema: triangles.indices items)."""
+    return all(type(v) is list and len(v) == 3 and all(type(x) is int and 0 <= x <= _INDEX_MAX for x in v)
+               for v in items)
+
+
+_INDEX_MAX = 2 ** 31 - 1
 
 
 _BULK_LISTS = {"triangles": (("positions", _is_vec3_list), ("indices", _is_index_list))}

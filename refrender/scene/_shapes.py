@@ -4,8 +4,10 @@ All lengths are in scene units; every returned shape is in world space.
 """
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import io
+import logging
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -13,7 +15,9 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ._util import format_path, scene_error, show, unit, vec3
+from ..errors import SceneError
+from ._util import format_path, path_problem, scene_error, show, unit, vec3
+from ..limits import AREA_MIN, SCENE_NUMBER_MAX
 from .model import Disk, Rectangle, Shape, Sphere, TriangleMesh
 
 #: |e1 . e2| may be at most this fraction of |e1| |e2| for a rectangle.
@@ -26,6 +30,12 @@ ZERO_AREA_TOLERANCE = 1e-12
 SINGULAR_TOLERANCE = 1e-12
 
 
+def _short(path) -> str:
+    """A path for an error message: at most 200 characters, control characters escaped."""
+    text = repr(str(path))[1:-1]
+    return text if len(text) <= 200 else text[:97] + "..." + text[-100:]
+
+
 @dataclass
 class FileLog:
     """Files read while loading a scene, in document order, with their hashes."""
@@ -35,15 +45,17 @@ class FileLog:
 
     def read(self, relative: str, path: tuple) -> tuple[Path, bytes]:
         """Read a referenced file; errors name the field *path*."""
-        resolved = (self.base_dir / relative).resolve()
-        if not resolved.exists():
-            raise scene_error(path, f"file not found: {resolved}")
-        if not resolved.is_file():
-            raise scene_error(path, f"not a file: {resolved}")
         try:
+            resolved = (self.base_dir / relative).resolve()
+            if not resolved.exists():
+                raise scene_error(path, f"file not found: {_short(resolved)}")
+            if not resolved.is_file():
+                raise scene_error(path, f"not a file: {_short(resolved)}")
             data = resolved.read_bytes()
-        except OSError as exc:
-            raise scene_error(path, f"cannot read {resolved}: {exc.strerror or exc}") from None
+        except SceneError:
+            raise
+        except (OSError, ValueError, RuntimeError) as exc:  # long name, NUL byte, symlink loop, I/O
+            raise scene_error(path, f"cannot read {_short(relative)}: {path_problem(exc)}") from None
         self.digests.append((resolved, hashlib.sha256(data).digest()))
         return resolved, data
 
@@ -150,15 +162,24 @@ def _rectangle(spec: dict, path: tuple, files: FileLog) -> Rectangle:
     if abs(float(u1 @ u2)) > PERPENDICULAR_TOLERANCE * np.linalg.norm(u1) * np.linalg.norm(u2):
         cosine = float(u1 @ u2) / (np.linalg.norm(u1) * np.linalg.norm(u2))
         raise scene_error(path + ("edge2",), f"edges must be perpendicular (cosine of their angle {cosine:.3g})")
+    with np.errstate(under="ignore"):
+        area = float(np.linalg.norm(np.cross(e1, e2)))
+    if not area >= AREA_MIN:
+        raise scene_error(path, f"area {area:.3g} is below {AREA_MIN:g} (refrender's smallest primitive area)")
     return Rectangle(origin=vec3(spec["origin"]), edge1=e1, edge2=e2)
 
 
 def zero_area(positions: np.ndarray, indices: np.ndarray) -> np.ndarray:
-    """(m,) bool mask of the triangles with zero area (see ZERO_AREA_TOLERANCE)."""
+    """(m,) bool mask of the triangles with zero area: relative to their edges (see
+    ZERO_AREA_TOLERANCE), or absolutely below AREA_MIN (refrender/limits.py)."""
     a, b, c = (positions[indices[:, k]] for k in range(3))
-    e1, e2 = _scaled(b - a), _scaled(c - a)
+    d1, d2 = b - a, c - a
+    e1, e2 = _scaled(d1), _scaled(d2)
     area2 = np.linalg.norm(np.cross(e1, e2), axis=1)
-    return area2 <= ZERO_AREA_TOLERANCE * np.linalg.norm(e1, axis=1) * np.linalg.norm(e2, axis=1)
+    relative = area2 <= ZERO_AREA_TOLERANCE * np.linalg.norm(e1, axis=1) * np.linalg.norm(e2, axis=1)
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+        absolute = ~(0.5 * np.linalg.norm(np.cross(d1, d2), axis=1) >= AREA_MIN)
+    return relative | absolute
 
 
 def _transformed(spec: dict, path: tuple, positions: np.ndarray, where: tuple) -> np.ndarray:
@@ -166,8 +187,9 @@ def _transformed(spec: dict, path: tuple, positions: np.ndarray, where: tuple) -
     matrix = transform_matrix(spec.get("transform"), path + ("transform",))
     with np.errstate(over="ignore", invalid="ignore"):
         world = apply_transform(matrix, positions)
-    if not np.all(np.isfinite(world)):
-        raise scene_error(where, "transformed positions are not finite (overflow)")
+    if not np.all(np.abs(world) <= SCENE_NUMBER_MAX):
+        raise scene_error(where, f"transformed positions exceed {SCENE_NUMBER_MAX:g} in magnitude "
+                          "(refrender's limit for coordinates)")
     return world
 
 
@@ -204,6 +226,23 @@ def _mesh_uvs(mesh, count: int) -> np.ndarray | None:
     return uv
 
 
+@contextlib.contextmanager
+def _quiet_trimesh():
+    """trimesh logs warnings (to stderr through logging's last-resort handler) and
+    its compiled helpers may print: both are held back while a mesh is read; a
+    failure becomes our one-line SceneError."""
+    from ..io.quiet import foreign_stderr
+    logger = logging.getLogger("trimesh")
+    level = logger.level
+    logger.setLevel(logging.CRITICAL + 1)
+    try:
+        with foreign_stderr(), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            yield
+    finally:
+        logger.setLevel(level)
+
+
 def _read_mesh(resolved: Path, data: bytes, path: tuple):
     """Vertex positions (n, 3) float64, faces (m, 3) int64 and texture coordinates
     ((n, 2) float64 or None) of a mesh file's bytes."""
@@ -211,7 +250,8 @@ def _read_mesh(resolved: Path, data: bytes, path: tuple):
 
     file_type = resolved.suffix.lstrip(".").lower()
     try:
-        mesh = trimesh.load(io.BytesIO(data), file_type=file_type, force="mesh", process=False)
+        with _quiet_trimesh():
+            mesh = trimesh.load(io.BytesIO(data), file_type=file_type, force="mesh", process=False)
         vertices = np.asarray(mesh.vertices, dtype=np.float64).reshape(-1, 3)
         faces = np.asarray(mesh.faces, dtype=np.int64).reshape(-1, 3)
         uvs = _mesh_uvs(mesh, len(vertices))

@@ -39,6 +39,23 @@ def one_line(text: str) -> str:
     return " ".join(str(text).split())
 
 
+def path_problem(exc: BaseException) -> str:
+    """A short reason for an OSError, ValueError or RuntimeError raised by a file path.
+
+    Covers a name longer than the file system allows (OSError ENAMETOOLONG), a
+    NUL byte in the name (ValueError) and a symlink loop (RuntimeError or
+    OSError ELOOP, by Python version).
+    """
+    if isinstance(exc, OSError) and exc.strerror:
+        return exc.strerror.lower()
+    if isinstance(exc, RuntimeError) and "loop" in str(exc).lower():
+        return "symbolic link loop"
+    if isinstance(exc, ValueError) and "null" in str(exc).lower():
+        return "the path contains a NUL byte"
+    text = one_line(str(exc))
+    return (text[:120] or type(exc).__name__)
+
+
 def scene_error(path: Sequence[str | int], message: str) -> SceneError:
     """A :class:`SceneError` whose one-line message starts with the field path."""
     return SceneError(one_line(f"{format_path(path)}: {message}"))

@@ -24,10 +24,11 @@ from typing import Any
 import numpy as np
 
 from ..errors import SceneError
+from ..limits import SCENE_NUMBER_MAX
 from ._build import build_camera, build_film, build_lights, build_materials, build_objects, build_render
 from ._schema_check import check_schema
 from ._shapes import FileLog
-from ._util import one_line, scene_error, show
+from ._util import one_line, path_problem, scene_error, show
 from .model import Scene
 
 __all__ = ["load_scene", "scene_sha256"]
@@ -87,24 +88,28 @@ def _parse_json(text: str, label: str) -> Any:
 
 
 def _plain_number(value: Any, path: tuple) -> int | float:
-    """A finite Python int or float, or an error naming *path*."""
+    """A finite Python int or float of magnitude <= SCENE_NUMBER_MAX, or an error naming *path*."""
     if isinstance(value, (int, np.integer)):
         if abs(int(value)) > _MAX_INT:
-            raise scene_error(path, "number too large (beyond the range of a double)")
+            raise scene_error(path, f"must have magnitude at most {SCENE_NUMBER_MAX:g} (refrender's "
+                              f"limit for scene numbers), got an integer of {len(str(abs(int(value))))} digits")
         return int(value)
     number = float(value)
     if not math.isfinite(number):
         raise scene_error(path, f"must be a finite number, got {show(number)}")
+    if abs(number) > SCENE_NUMBER_MAX:
+        raise scene_error(path, f"must have magnitude at most {SCENE_NUMBER_MAX:g} (refrender's limit "
+                          f"for scene numbers), got {number:g}")
     return number
 
 
-_MAX_INT = 2 ** 1023
+_MAX_INT = int(SCENE_NUMBER_MAX)
 
 
 def _is_plain_number(x: Any) -> bool:
-    """Fast test for the common case: a Python float that is finite or a modest int."""
+    """Fast test for the common case: a Python float or int of magnitude <= SCENE_NUMBER_MAX."""
     kind = type(x)
-    return (kind is float and math.isfinite(x)) or (kind is int and -_MAX_INT <= x <= _MAX_INT)
+    return (kind is float and -SCENE_NUMBER_MAX <= x <= SCENE_NUMBER_MAX) or (kind is int and -_MAX_INT <= x <= _MAX_INT)
 
 
 def plain_document(value: Any, path: tuple = ()) -> Any:
@@ -176,8 +181,16 @@ def _document_of(source: Any) -> tuple[Any, Path | None]:
     if isinstance(source, dict):
         return plain_document(source), None
     if isinstance(source, (str, os.PathLike)):
-        path, label = Path(source), str(source)
-        return plain_document(_parse_json(_read_text(path, label), label)), path.resolve()
+        path, label = Path(source), one_line(repr(str(source))[1:-1])
+        try:
+            text = _read_text(path, label)
+            resolved = path.resolve()
+        except SceneError:
+            raise
+        except (OSError, ValueError, RuntimeError) as exc:
+            # a name too long for the file system, a NUL byte, a symlink loop ...
+            raise SceneError(one_line(f"{label[:200]}: cannot read the scene file: {path_problem(exc)}")) from None
+        return plain_document(_parse_json(text, label)), resolved
     raise SceneError(f"scene: expected a path to a JSON file or a dict, got a {type(source).__name__}")
 
 
