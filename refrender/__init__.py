@@ -6,7 +6,7 @@ from .errors import ImageError, RefrenderError, RenderError, SceneError
 from .render import render
 from .result import Result, merge
 
-__all__ = ["load_scene", "render", "merge", "read_image", "trace", "Result", "SceneError",
+__all__ = ["load_scene", "prepare", "render", "merge", "read_image", "trace", "Result", "SceneError",
            "RefrenderError", "RenderError", "ImageError", "__version__"]
 
 
@@ -26,3 +26,10 @@ def trace(scene, origins, directions, *, arrays=None, kernel="auto"):
     """Closest hits of a batch of rays; see refrender.query.trace."""
     from .query import trace as _trace
     return _trace(scene, origins, directions, arrays=arrays, kernel=kernel)
+
+
+def prepare(scene):
+    """The compiled scene (BVH, arrays, lights), built once per Scene object and
+    reused by trace, render and the farm; see refrender.prepared."""
+    from .prepared import prepare as _prepare
+    return _prepare(scene)

@@ -69,11 +69,28 @@ def pack_scene(scene) -> tuple[bytes, str]:
     return payload, hashlib.sha256(payload).hexdigest()
 
 
-def _render_task(payload: bytes, digest: str, settings: dict, start: int, stop: int, threads):
-    """Worker side: check the payload, render samples [start, stop), return accumulators."""
+#: worker side: the scenes of the last few payloads by their SHA-256, so that
+#: every task of a render uses one Scene object and its compiled form
+#: (refrender.prepared) is built once per worker, not once per task
+_WORKER_SCENES: dict[str, object] = {}
+_WORKER_SCENES_KEPT = 2
+
+
+def _worker_scene(payload: bytes, digest: str):
     if hashlib.sha256(payload).hexdigest() != digest:
         raise RenderError(f"scene payload arrived corrupted (SHA-256 mismatch, expected {digest[:12]}…)")
-    scene = pickle.loads(payload)
+    scene = _WORKER_SCENES.get(digest)
+    if scene is None:
+        scene = pickle.loads(payload)
+        while len(_WORKER_SCENES) >= _WORKER_SCENES_KEPT:
+            _WORKER_SCENES.pop(next(iter(_WORKER_SCENES)))
+        _WORKER_SCENES[digest] = scene
+    return scene
+
+
+def _render_task(payload: bytes, digest: str, settings: dict, start: int, stop: int, threads):
+    """Worker side: check the payload, render samples [start, stop), return accumulators."""
+    scene = _worker_scene(payload, digest)
     res = render(scene, spp=stop - start, first_sample=start, threads=threads, **settings)
     return {"range": (start, stop), "sum": res.sum, "sum_sq": res.sum_sq, "count": res.count,
             "meta": res.meta, "stats": res.stats, "pid": os.getpid(),

@@ -7,8 +7,9 @@ import numba
 import numpy as np
 
 from .errors import RenderError
-from .geometry.compile import SceneArrays, compile_scene
+from .geometry.compile import SceneArrays
 from .geometry.traverse import trace_batch, trace_stream
+from .prepared import prepare
 
 
 class Hits(NamedTuple):
@@ -54,7 +55,9 @@ def trace(scene, origins, directions, *, arrays: SceneArrays | None = None,
         Ray origins and directions (need not be unit length; t is in units of
         the given direction's length).
     arrays : SceneArrays, optional
-        A compiled scene to reuse across calls.
+        A compiled scene to use instead of the scene's own.  Not needed for
+        speed: the scene is compiled on its first use and reused by later
+        calls (see refrender.prepared).
     kernel : {"auto", "sequential", "interleaved"}
         "sequential" traces one ray after the other (fastest for coherent
         rays), "interleaved" advances 16 rays in turn with prefetching
@@ -69,7 +72,7 @@ def trace(scene, origins, directions, *, arrays: SceneArrays | None = None,
         raise RenderError(f"trace: origins and directions must both be (N, 3), got {o.shape} and {d.shape}")
     if not (np.isfinite(o).all() and np.isfinite(d).all()):
         raise RenderError("trace: origins and directions must be finite")
-    S = arrays if arrays is not None else compile_scene(scene)
+    S = arrays if arrays is not None else prepare(scene).arrays
     n = o.shape[0]
     k = np.empty(n, dtype=np.int64)
     t = np.empty(n)

@@ -10,11 +10,11 @@ import numba
 import numpy as np
 
 from .errors import RenderError
-from .geometry.compile import build_lights, camera_array, compile_scene
 from .integrator.path import STRATEGY_BSDF, STRATEGY_MIS, STRATEGY_NEE, render_pass
 from .sampling.filters import build_filter, is_pixel_square
 from .overnight import (DEFAULT_MIN_SPP, check_memory, check_resumable, kernel_sha256, next_check,
                         target_statistic)
+from .prepared import prepare
 from .result import Result, warn_nonfinite
 from .sampling.lights import MODE_AREA, MODE_SOLID_ANGLE
 from .scene.model import Scene
@@ -199,7 +199,8 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
     if st["color_space"] != "linear_rec709":
         meta["color_space"] = st["color_space"]
     fa = build_filter(fname, fparams)
-    S = compile_scene(scene)
+    prepared = prepare(scene)            # built once per Scene object (refrender.prepared)
+    S = prepared.arrays
     from .layers import id_images, plan
     lp = plan(scene, S, st["strategy"], st["layers"])
     if st["layers"]:
@@ -231,8 +232,8 @@ def render(scene: Scene, *, spp=None, seed=None, first_sample: int = 0, max_boun
     ids = None
     if any(k in st["layers"] for k in ("object_id", "material_id")):
         ids = id_images(scene, S, (x0, y0, x1, y1))
-    L = build_lights(scene, S, st["strategy"])
-    cam = camera_array(scene)
+    L = prepared.lights(st["strategy"])
+    cam = prepared.camera
     row_rays = np.zeros(h, dtype=np.int64)
     row_bad = np.zeros(h, dtype=np.int64)
     row_time = np.zeros((h, 2), dtype=np.int64)   # cycles of timed paths, of their traversal
