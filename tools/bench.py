@@ -364,7 +364,7 @@ def against(rev, runs, quick, startup_runs):
 
 def against_table(rows, rev, sha, head, quick, runs):
     spp = 2 if quick else 8
-    fill = dict(spp=spp, tris="20 480" if quick else "81 920", rays="100 000" if quick else "500 000",
+    fill = dict(spp=spp, tris="81 920", rays="100 000" if quick else "500 000",
                 res=256 if quick else 512)
     out = [f"Medians of {runs} alternating runs; ratio = {rev} ({sha[:10]}) time / this tree ({head}) time "
            "(> 1: this tree is faster).", "",
