@@ -305,7 +305,9 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
     lb = 0.0
     rays = 0
     depth = 0
-    skip = -1
+    # np.int64: a literal -1 first types closest_hit with Literal[int](-1) and
+    # compiles it a second time for int64 (seconds of cold compile)
+    skip = np.int64(-1)
     prev_x = ox
     prev_y = oy
     prev_z = oz
@@ -604,8 +606,11 @@ def render_pass(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
     the demo scene, 2 threads).
     """
     for ii in prange(row_order.shape[0]):
+        # np.int64: the loop index is int64 when the loop is typed and uint64
+        # in the parallel body; render_rows was compiled for both
+        lo = np.int64(ii)
         render_rows(S, L, cam, seed, max_bounces, rr_start, strategy, mode,
-                    x0, y0, x1, y1, width, first_sample, n_samples, row_order, ii, ii + 1,
+                    x0, y0, x1, y1, width, first_sample, n_samples, row_order, lo, lo + 1,
                     acc_sum, acc_sq, acc_n, row_rays, row_bad, row_time,
                     filt, fcdf, fpdf, lay_depth, lay_obj, lay_light, lay_misc, acc_lsum, acc_lsq)
     return 0
