@@ -14,7 +14,7 @@ a plain picklable value: the farm's payload and ``copy`` never carry it):
   finaliser that drops the entry when the scene dies, before its ``id`` can be
   reused), so a different scene, even an equal one, never reuses it;
 * the entry also keeps the scene's parts it was built from (camera, film,
-  every material, object, shape and light) and is rebuilt when any of them
+  render settings, every material, object, shape and light) and is rebuilt when any of them
   is no longer the same object, e.g. after ``scene.objects.append(...)`` or
   replacing a list item (a Scene is frozen, but its lists and dicts are not).
 
@@ -66,7 +66,7 @@ class _Entry:
 def _parts(scene) -> tuple:
     """The objects a compiled scene depends on (compared by identity)."""
     objs = tuple(scene.objects)
-    return ((scene.camera, scene.film, scene.materials) + tuple(scene.materials.items())
+    return ((scene.camera, scene.film, scene.render, scene.materials) + tuple(scene.materials.items())
             + objs + tuple(o.shape for o in objs) + (scene.lights,) + tuple(scene.lights))
 
 

@@ -16,7 +16,8 @@ worker process per tree (each imports its own ``refrender``), warms both up,
 then times the same path-tracing and closest-hit workloads on both,
 alternating which goes first, and prints the median of ``--runs`` (default 5)
 and the ratio this/REV for each, plus whether both gave the same image or
-hits bit for bit.  ``--startup N`` adds N cold-cache and N warm-cache
+hits bit for bit.  ``--keep-tree`` keeps REV's checkout in the temporary
+folder, so that the next run against it loads its compiled kernels.  ``--startup N`` adds N cold-cache and N warm-cache
 start-ups per tree (alternating).  The load average is printed beside the
 figures: the machine may be shared.
 """
@@ -25,6 +26,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import shutil
 import statistics
 import subprocess
 import sys
@@ -296,16 +298,24 @@ def _load():
     return "load %.1f %.1f %.1f" % os.getloadavg()
 
 
-def against(rev, runs, quick, startup_runs):
+def against(rev, runs, quick, startup_runs, keep_tree=False):
     """Time the same workloads on REV and on this working tree, alternating; print ratios."""
     sha = subprocess.run(["git", "rev-parse", "--verify", rev + "^{commit}"], cwd=ROOT, check=True,
                          capture_output=True, text=True).stdout.strip()
     head = subprocess.run(["git", "describe", "--always", "--dirty"], cwd=ROOT,
                           capture_output=True, text=True).stdout.strip()
-    tmp = Path(tempfile.mkdtemp(prefix="refrender-against-"))
-    tree = tmp / "tree"
-    subprocess.run(["git", "worktree", "add", "--detach", str(tree), sha], cwd=ROOT, check=True,
-                   capture_output=True)
+    # one folder per commit, kept with --keep-tree: numba's cache is keyed on the
+    # source files' paths and modification times, so only a kept checkout lets
+    # the next run against the same REV load REV's kernels instead of compiling
+    tree = Path(tempfile.gettempdir()) / f"refrender-against-{sha[:12]}"
+    kept = subprocess.run(["git", "-C", str(tree), "rev-parse", "HEAD"], capture_output=True,
+                          text=True).stdout.strip() == sha if tree.exists() else False
+    if not kept:
+        subprocess.run(["git", "worktree", "remove", "--force", str(tree)], cwd=ROOT, capture_output=True)
+        shutil.rmtree(tree, ignore_errors=True)
+        subprocess.run(["git", "worktree", "prune"], cwd=ROOT, capture_output=True)
+        subprocess.run(["git", "worktree", "add", "--detach", str(tree), sha], cwd=ROOT, check=True,
+                       capture_output=True)
     workers = {}
     rows = []
     try:
@@ -352,10 +362,10 @@ def against(rev, runs, quick, startup_runs):
     finally:
         for w in workers.values():
             w.close()
-        subprocess.run(["git", "worktree", "remove", "--force", str(tree)], cwd=ROOT, capture_output=True)
-        subprocess.run(["git", "worktree", "prune"], cwd=ROOT, capture_output=True)
-        import shutil
-        shutil.rmtree(tmp, ignore_errors=True)
+        if not keep_tree:
+            subprocess.run(["git", "worktree", "remove", "--force", str(tree)], cwd=ROOT, capture_output=True)
+            subprocess.run(["git", "worktree", "prune"], cwd=ROOT, capture_output=True)
+            shutil.rmtree(tree, ignore_errors=True)
     print(f"# measured; {load_after}")
     print()
     print(against_table(rows, rev, sha, head, quick, runs))
@@ -440,13 +450,15 @@ def main(argv=None):
     ap.add_argument("--against", metavar="REV", help="compare with git revision REV in one run")
     ap.add_argument("--startup", type=int, default=0, metavar="N",
                     help="with --against: N cold and N warm start-ups per tree")
+    ap.add_argument("--keep-tree", action="store_true",
+                    help="with --against: keep REV's checkout (and so its compiled kernels) for the next run")
     ap.add_argument("--serve", action="store_true", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args.serve:
         serve(args.quick)
         return 0
     if args.against:
-        rows = against(args.against, args.runs or 5, args.quick, args.startup)
+        rows = against(args.against, args.runs or 5, args.quick, args.startup, args.keep_tree)
         if args.json:
             Path(args.json).write_text(json.dumps(rows, indent=2))
         return 0
