@@ -318,10 +318,20 @@ def _bad_files(tmp_path):
     g = _good(tmp_path)
     g.doc["extensionsUsed"] = g.doc["extensionsRequired"] = ["KHR_draco_mesh_compression"]
     cases["required"] = (g.write_gltf(tmp_path / "draco.gltf"), "KHR_draco_mesh_compression")
+    g = _good(tmp_path)       # the number limits of refrender/limits.py, as for JSON scenes
+    g.doc["nodes"][0]["translation"] = [0, 1e31, 0]
+    cases["far"] = (g.write_gltf(tmp_path / "far.gltf"), "nodes[0].mesh: mesh 0 placed by this node has positions "
+                    "beyond 1e+30")
+    g = _good(tmp_path)
+    g.doc["materials"] = [{"emissiveFactor": [1, 1, 1],
+                           "extensions": {"KHR_materials_emissive_strength": {"emissiveStrength": 1e300}}}]
+    g.doc["extensionsUsed"] = ["KHR_materials_emissive_strength"]
+    g.doc["meshes"][0]["primitives"][0]["material"] = 0
+    cases["bright"] = (g.write_gltf(tmp_path / "bright.gltf"), "emissive times emissiveStrength exceeds 1e+30")
     return cases
 
 
-BAD = ["truncated", "missing buffer", "accessor range", "index", "nan", "lines", "required"]
+BAD = ["truncated", "missing buffer", "accessor range", "index", "nan", "lines", "required", "far", "bright"]
 
 
 @pytest.mark.parametrize("case", BAD)

@@ -34,6 +34,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..limits import SCENE_NUMBER_MAX
 from ._shapes import zero_area
 from .gltf_read import GltfFile, Ignored
 from .model import Camera, DirectionalLight, Material, Object, PointLight, SpotLight, TriangleMesh
@@ -464,6 +465,9 @@ def import_gltf(path, *, label: str | None = None, gltf_scene: int | None = None
                 ignored.add("alphaMode BLEND", "rendered opaque (stochastic pass-through not yet "
                             "implemented)")
             wpos = pos @ world[:3, :3].T + world[:3, 3]
+            if not np.all(np.abs(wpos) <= SCENE_NUMBER_MAX):
+                raise f.error(("nodes", ni, "mesh"), f"mesh {node.mesh} placed by this node has positions beyond "
+                              f"{SCENE_NUMBER_MAX:g} (refrender's limit for lengths)")
             t = tris[:, ::-1] if flip else tris
             keep = ~zero_area(wpos, t) if len(t) else np.zeros(0, bool)
             t = t[keep]
@@ -477,6 +481,7 @@ def import_gltf(path, *, label: str | None = None, gltf_scene: int | None = None
             n_tris += len(t)
     if f.doc.animations:
         ignored.add("animations", "the file's static pose is rendered")
+    _check_radiometry(f, out)
     out.digests = f.digests
     prims = [k for k in cache if k[0] != "uv"]
     out.counts = {"meshes": len({k[0] for k in prims}), "primitives": len(prims),
@@ -513,6 +518,24 @@ def select_camera(imp: GltfImport, camera: str | int | None, label: str) -> Gltf
             return c
     known = ", ".join(repr(c.name) for c in imp.cameras)
     raise SceneError(f"{label}: cameras: no camera named {text!r} (known: {known})")
+
+
+def _check_radiometry(f, out: "GltfImport") -> None:
+    """Emission and light values within SCENE_NUMBER_MAX, as for JSON scenes (refrender/limits.py)."""
+    for name, mat in out.materials.items():
+        emissive = np.asarray(mat.params.get("emissive", np.zeros(3)), dtype=np.float64)
+        if not np.all(np.abs(emissive) <= SCENE_NUMBER_MAX):
+            raise f.error(("materials",), f"{name}: emissive times emissiveStrength exceeds "
+                          f"{SCENE_NUMBER_MAX:g} (refrender's limit for radiometric values)")
+    for i, light in enumerate(out.lights):
+        for key, value in vars(light).items():
+            if isinstance(value, (np.ndarray, float, int)) and not isinstance(value, bool):
+                v = np.asarray(value, dtype=np.float64)
+                if key == "range":
+                    v = np.where(np.isposinf(v), 0.0, v)        # no range: an infinite window
+                if not np.all(np.abs(v) <= SCENE_NUMBER_MAX):
+                    raise f.error(("extensions", "KHR_lights_punctual", "lights"),
+                                  f"light {i}: {key} exceeds {SCENE_NUMBER_MAX:g} (refrender's limit)")
 
 
 def load_gltf_scene(path, *, camera: str | int | None = None, gltf_scene: int | None = None,
