@@ -11,10 +11,12 @@ from ..errors import ImageError
 
 def add_parser(sub) -> None:
     p = sub.add_parser("info", help="show the metadata and noise of a rendered EXR or state file, "
-                       "or what a glTF file imports as")
-    p.add_argument("file", help="an EXR written by refrender, its .state file, or a .gltf/.glb file")
+                       "or what a glTF file or USD stage imports as")
+    p.add_argument("file", help="an EXR written by refrender, its .state file, a .gltf/.glb file or "
+                   "a USD stage")
     p.add_argument("--json", action="store_true", help="print machine-readable JSON")
     p.add_argument("--gltf-scene", type=int, metavar="INDEX", help="glTF files: the scene to read")
+    p.add_argument("--camera", metavar="PRIM_PATH", help="USD stages: the camera to describe")
     from .render import add_gltf_light_options
     add_gltf_light_options(p)
     p.set_defaults(run=run)
@@ -115,6 +117,29 @@ def _gltf_info(args) -> int:
     return 0
 
 
+def _usd_info(args) -> int:
+    """What the translation of a USD stage imports, approximates and ignores."""
+    from ..scene.usd import translate_stage
+    report = translate_stage(args.file, camera=args.camera).report()
+    if args.json:
+        print(json.dumps(report, indent=2, sort_keys=True))
+        return 0
+    for key in ("layers", "cameras"):
+        print(f"{key:>{W}}: {', '.join(report[key]) or 'none'}")
+    print(f"{'camera':>{W}}: {report['camera']}")
+    film = report["film"]
+    print(f"{'film':>{W}}: {film['width']} x {film['height']}")
+    for key in ("objects", "triangles", "materials", "lights"):
+        print(f"{key:>{W}}: {report[key]}")
+    for key in ("imported", "approximated", "ignored", "notes"):
+        items = report[key]
+        if not items:
+            print(f"{key:>{W}}: nothing")
+        for item in items:
+            print(f"{key:>{W}}: {item}")
+    return 0
+
+
 def run(args) -> int:
     from ..overnight import format_duration
     path = Path(args.file)
@@ -122,6 +147,9 @@ def run(args) -> int:
         raise ImageError(f"{path}: no such file")
     if path.suffix.lower() in (".gltf", ".glb"):
         return _gltf_info(args)
+    from ..scene.usd import is_usd
+    if is_usd(path):
+        return _usd_info(args)
     info = describe(path)
     if args.json:
         print(json.dumps(info, indent=2, sort_keys=True))

@@ -29,7 +29,7 @@ def add_parser(sub) -> None:
                        "resuming).  Budgets --spp, --time and --target-error combine: the first "
                        "reached stops the render.  SIGINT/SIGTERM save a checkpoint and exit "
                        "130/143; --resume continues it bit-identically.")
-    p.add_argument("scene", help="scene file (JSON)")
+    p.add_argument("scene", help="scene file (JSON) or an OpenUSD stage (.usd, .usda, .usdc, .usdz)")
     p.add_argument("-o", "--output", required=True, help="output EXR file")
     p.add_argument("--spp", type=int, help="samples per pixel in total, resumed ones included "
                    "(default: the scene's render.spp, unless --time or --target-error is given)")
@@ -75,14 +75,17 @@ def add_parser(sub) -> None:
                       help="render on a local Dask cluster of N worker processes (127.0.0.1 only)")
     farm.add_argument("--task-spp", type=int, metavar="N",
                       help="samples per pixel of one farm task (default: about 8 tasks per worker)")
-    gl = p.add_argument_group("glTF 2.0 scenes (SCENE is a .gltf or .glb file)")
-    gl.add_argument("--camera", metavar="NAME|INDEX",
-                    help="the camera: a node or camera name, or an index in node order "
-                    "(default: the first camera)")
+    gl = p.add_argument_group("imported scenes (SCENE is a glTF 2.0 .gltf/.glb file or an OpenUSD "
+                              ".usd/.usda/.usdc/.usdz stage)")
+    gl.add_argument("--camera", metavar="NAME|INDEX|PRIM_PATH",
+                    help="glTF: a node or camera name, or an index in node order (default: the first "
+                    "camera); USD: the camera prim, e.g. /World/ShotCam (default: the UsdRender "
+                    "settings' camera, else the first camera of the stage)")
     gl.add_argument("--gltf-scene", type=int, metavar="INDEX",
                     help="the glTF scene to render (default: the file's scene)")
     gl.add_argument("--film-height", type=int, metavar="PIXELS",
-                    help="film height; the width follows the camera's aspect ratio (default 480)")
+                    help="film height; the width follows the camera's aspect ratio (default: glTF 480; "
+                    "USD the render settings' resolution, else 360)")
     add_gltf_light_options(gl)
     p.add_argument("--preview", help="also write an sRGB PNG preview")
     p.add_argument("--exposure", type=float, default=0.0, help="preview exposure in stops")
@@ -105,16 +108,22 @@ def is_gltf(path) -> bool:
 
 
 def load_any_scene(args):
-    """The scene of args.scene: a JSON scene, or a glTF file with the glTF options."""
+    """The scene of args.scene: a JSON scene, a glTF file with the glTF options, or a USD
+    stage with --camera and --film-height."""
     from .. import load_scene
+    from ..scene.usd import is_usd, load_usd_scene
+    if args.film_height is not None and not 1 <= args.film_height <= 2 ** 14:
+        raise RenderError(f"--film-height: must be in 1..16384, got {args.film_height}")
+    if is_usd(args.scene):
+        if args.gltf_scene is not None:
+            raise RenderError("--gltf-scene: applies only to a .gltf or .glb scene")
+        return load_usd_scene(args.scene, camera=args.camera, film_height=args.film_height)
     if not is_gltf(args.scene):
         for opt in ("camera", "gltf_scene", "film_height"):
             if getattr(args, opt, None) is not None:
-                raise RenderError(f"--{opt.replace('_', '-')}: applies only to a .gltf or .glb scene")
+                raise RenderError(f"--{opt.replace('_', '-')}: applies only to a glTF or USD scene")
         return load_scene(args.scene)
     from ..scene.gltf import load_gltf_scene
-    if args.film_height is not None and not 1 <= args.film_height <= 2 ** 14:
-        raise RenderError(f"--film-height: must be in 1..16384, got {args.film_height}")
     return load_gltf_scene(args.scene, camera=args.camera, gltf_scene=args.gltf_scene,
                            film_height=args.film_height, light_units=args.light_units,
                            light_range=args.light_range)

@@ -201,7 +201,8 @@ def load_scene(source: str | os.PathLike | dict, *, base_dir: str | os.PathLike 
     ----------
     source
         Path of a scene JSON file, or the document itself as a dict (the same
-        structure; tuples and numpy values are accepted and converted).
+        structure; tuples and numpy values are accepted and converted), or an
+        OpenUSD stage (.usd, .usda, .usdc, .usdz; see :mod:`refrender.scene.usd`).
     base_dir
         Folder against which relative file paths in the scene (meshes) are
         resolved. Default: the folder of the scene file, or the current
@@ -219,6 +220,9 @@ def load_scene(source: str | os.PathLike | dict, *, base_dir: str | os.PathLike 
     SceneError
         One line naming the field, e.g. ``objects[2].radius: must be > 0, got -1``.
     """
+    from .usd import expand_usd_objects, is_usd, load_usd_scene
+    if is_usd(source):
+        return load_usd_scene(source)
     try:
         document, source_path = _document_of(source)
     except RecursionError:
@@ -229,20 +233,24 @@ def load_scene(source: str | os.PathLike | dict, *, base_dir: str | os.PathLike 
     else:
         folder = source_path.parent if source_path is not None else Path.cwd()
     files = FileLog(folder.resolve())
-    camera = build_camera(document["camera"])
-    film = build_film(document["film"])
-    materials = build_materials(document.get("materials", {}), files)
+    built = document
+    if any(spec.get("shape") == "usd" for spec in document["objects"]):
+        built = expand_usd_objects(document, files)   # the stages' entries, validated like the rest
+        check_schema(built)
+    camera = build_camera(built["camera"])
+    film = build_film(built["film"])
+    materials = build_materials(built.get("materials", {}), files)
     imported = {}
-    for i, spec in enumerate(document["objects"]):
+    for i, spec in enumerate(built["objects"]):
         if spec["shape"] == "gltf":
             from .gltf import expand_gltf_object
             imported[i] = expand_gltf_object(spec, ("objects", i), files)
             materials.update(imported[i].materials)
-    objects = build_objects(document["objects"], materials, files, imported)
-    lights = build_lights(document.get("lights", []), files)
+    objects = build_objects(built["objects"], materials, files, imported)
+    lights = build_lights(built.get("lights", []), files)
     for part in imported.values():
         lights.extend(part.lights)
-    render = build_render(document.get("render", {}))
+    render = build_render(built.get("render", {}))
     return Scene(
         camera=camera, film=film, materials=materials, objects=objects, lights=lights, render=render,
         sha256=scene_sha256(document, [d for _, d in files.digests]),
