@@ -638,10 +638,10 @@ def translate_stage(path, *, camera: str | None = None, with_camera: bool = True
         doc["film"] = t.film(aspect, film_height)
         for c in t.cameras:
             if c != prim:
-                t.log.ignore(c, "camera (not the one rendered; choose with --camera)")
+                t.log.note(c, "camera not rendered (choose it with --camera)")
     else:
         for c in t.cameras:
-            t.log.ignore(c, "camera (stages inside a JSON scene use the scene's camera)")
+            t.log.note(c, "camera not used (a stage without its camera: the scene's camera renders)")
     return Translation(document=doc, log=t.log, layers=_layers(stage),
                        cameras=[str(c.GetPath()) for c in t.cameras], camera=chosen)
 

@@ -29,8 +29,8 @@ ROUND_SEGMENTS = 64
 # ----------------------------------------------------------------------------- matrices
 
 def apply(matrix: np.ndarray, points: np.ndarray) -> np.ndarray:
-    """(n, 3) points transformed by a (4, 4) column-vector affine matrix."""
-    return points @ matrix[:3, :3].T + matrix[:3, 3]
+    """(n, 3) points transformed by a (4, 4) column-vector affine matrix (-0.0 becomes 0.0)."""
+    return points @ matrix[:3, :3].T + matrix[:3, 3] + 0.0
 
 
 def similarity_scale(linear: np.ndarray, tol: float = 1e-9) -> float | None:

@@ -101,7 +101,7 @@ def rect_light(prim, matrix, log) -> list[dict]:
     w, h = float(_input(prim, "width", 1.0)), float(_input(prim, "height", 1.0))
     value, normalize = light_scalar(prim)
     lin = matrix[:3, :3]
-    e1, e2 = lin @ np.array([0.0, h, 0.0]), lin @ np.array([w, 0.0, 0.0])
+    e1, e2 = lin @ np.array([0.0, h, 0.0]) + 0.0, lin @ np.array([w, 0.0, 0.0]) + 0.0
     origin = apply(matrix, np.array([[-0.5 * w, -0.5 * h, 0.0]]))[0]
     if np.linalg.det(lin) < 0.0:
         e1, e2 = e2, e1
@@ -138,7 +138,7 @@ def disk_light(prim, matrix, log) -> list[dict]:
     lx, ly = float(np.linalg.norm(ex)), float(np.linalg.norm(ey))
     if abs(lx - ly) <= 1e-9 * lx and abs(float(ex @ ey)) <= 1e-9 * lx * ly:
         entry = {"shape": "disk", "center": apply(matrix, np.zeros((1, 3)))[0].tolist(),
-                 "normal": (-normal_dir / np.linalg.norm(normal_dir)).tolist(), "radius": r * lx}
+                 "normal": (0.0 - normal_dir / np.linalg.norm(normal_dir)).tolist(), "radius": r * lx}
     else:
         pts, tris = disk_mesh(r)
         entry = solid_entry(pts, tris, matrix)
@@ -231,7 +231,7 @@ def distant_light(prim, matrix, log) -> list[dict]:
     if theta > 0.0:
         log.approximate(prim, f"DistantLight angle {angle:g} degrees rendered as one direction "
                         "(same irradiance; no penumbra)")
-    return [{"type": "directional", "direction": (direction / np.linalg.norm(direction)).tolist(),
+    return [{"type": "directional", "direction": (direction / np.linalg.norm(direction) + 0.0).tolist(),
              "irradiance": _nonneg(irradiance)}]
 
 
