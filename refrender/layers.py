@@ -155,6 +155,9 @@ def plan(scene, arrays, strategy: str, requests) -> LayerPlan:
                 table.append(int(lay_obj[arrays.prim_object[prim]]))
             else:
                 table.append(slot_of[scene.lights[src].group])
+        # then one entry per distant disc of LightArrays.cones (escaping rays that reach one)
+        from .geometry.compile import cone_sources
+        table += [slot_of[scene.lights[src].group] for src in cone_sources(scene)]
         lay_light = np.array(table, dtype=np.int64)
         if "environment" in slot_of:
             misc[LAY_ENV] = slot_of["environment"]

@@ -128,7 +128,8 @@ def test_chi_square(case):
 
 
 @pytest.mark.parametrize("name", ["triangle solid_angle", "rectangle solid_angle",
-                                  "sphere solid_angle", "environment image", "diffuse BSDF"])
+                                  "sphere solid_angle", "environment image", "diffuse BSDF",
+                                  "distant disc 40 deg"])
 def test_broken_sampler_fails_the_battery(name):
     """Testing the test: u1 -> u1**1.1 with the pdf unchanged must be rejected
     (Arvo 1995, Stratified Sampling of Spherical Triangles, SIGGRAPH '95 reports p ~ 1e-299 for the triangle)."""

@@ -114,12 +114,17 @@ def test_sphere_light_beside_tilted_receiver(tmp_path, strategy, sampling):
     assert row["passed"], row
 
 
-@pytest.mark.parametrize("normalize", [False, True])
-def test_distant_light_irradiance_of_a_disc_source(tmp_path, normalize):
-    """DistantLight of angle 0.53 degrees: E = pi L sin^2(theta/2) on a facing surface (the
-    cone's closed form, common practice), times cos of the incidence; normalize divides
-    by pi sin^2(theta_max) (usdLux schema.usda), so E = intensity."""
-    L, angle, incidence = 50000.0, 0.53, 30.0
+@pytest.mark.parametrize("angle,incidence,normalize,strategies", [
+    (0.53, 30.0, False, ("mis", "nee")),          # the sun: BSDF rays alone almost never find it
+    (0.53, 30.0, True, ("mis",)),
+    (40.0, 80.0, False, ("mis", "nee", "bsdf")),  # a wide disc cut by the receiver's horizon
+])
+def test_distant_light_as_a_distant_disc(tmp_path, angle, incidence, normalize, strategies):
+    """DistantLight: angular diameter `angle` (usdLux schema.usda), radiance L = intensity,
+    divided by pi sin^2(theta_max) when normalized (so intensity is then the irradiance on a
+    facing surface).  Expected: L times Howell's element-to-sphere factor with
+    r / d = sin(angle / 2) (refrender.validation.distant_disc_case)."""
+    L = 50000.0 if angle < 1 else 2.0
     stage = receiver_stage(tmp_path / "sun.usda")
     sun = UsdLux.DistantLight.Define(stage, "/W/Sun")
     sun.CreateAngleAttr(angle)
@@ -127,11 +132,11 @@ def test_distant_light_irradiance_of_a_disc_source(tmp_path, normalize):
     sun.CreateNormalizeAttr(normalize)
     UsdGeom.XformCommonAPI(sun).SetRotate((0.0, incidence, 0.0))   # -Z tilted toward -X
     stage.Save()
-    E = L if normalize else math.pi * float(np.float32(L)) * math.sin(math.radians(float(np.float32(angle))) / 2) ** 2
-    expected = V.RHO * E * math.cos(math.radians(incidence)) / math.pi
-    ref = V.Case("distant light", expected, "irradiance of a uniform disc source (common practice)", {})
-    for strategy in ("mis", "nee"):
-        row = V.run_case(usd_case(tmp_path / "sun.usda", ref, spp=16), strategy, "solid_angle", target=0.01)
+    a32 = float(np.float32(angle))
+    E = L if normalize else math.pi * L * math.sin(math.radians(a32) / 2) ** 2
+    ref = V.distant_disc_case(E, a32, incidence)
+    for strategy in strategies:
+        row = V.run_case(usd_case(tmp_path / "sun.usda", ref, spp=256), strategy, "solid_angle", target=0.01)
         assert row["passed"], row
 
 

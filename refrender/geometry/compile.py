@@ -32,6 +32,7 @@ LIGHT_ENVIRONMENT = 3
 LIGHT_SPOT = 4
 #: floats per row of LightArrays.light_data
 LIGHT_DATA = 12
+LIGHT_DISTANT_CONE = 5   # a directional light with angular_diameter > 0
 
 # camera projection codes
 CAM_PERSPECTIVE = 0
@@ -77,6 +78,8 @@ class LightArrays(NamedTuple):
     env_pmf: np.ndarray        # (h, w) pixel probabilities of the image distribution
     env_marg: np.ndarray       # (h + 1,) marginal cdf over rows
     env_cond: np.ndarray       # (h, w + 1) conditional cdf of each row
+    cones: np.ndarray          # (K, 8) distant discs: axis toward the source, radiance rgb,
+                               # 1 - cos(half angle), selection probability (0: not sampled)
 
 
 def _shape_records(shape):
@@ -244,6 +247,10 @@ def light_power(scene: m.Scene, arrays: SceneArrays):
             # the cone's solid angle bounds the power (selection only)
             solid = 2.0 * math.pi * (1.0 - light.cos_outer) if light.cone else 4.0 * math.pi
             rows.append((LIGHT_SPOT, -1, data, solid * float(LUMINANCE @ light.intensity), src))
+        elif isinstance(light, m.DirectionalLight) and light.angular_diameter > 0.0:
+            data[:3], data[3:6], data[6] = light.direction, *cone_terms(light)
+            rows.append((LIGHT_DISTANT_CONE, -1, data, math.pi * R2 * float(LUMINANCE @ light.irradiance),
+                         src))
         elif isinstance(light, m.DirectionalLight):
             data[:3], data[3:6] = light.direction, light.irradiance
             rows.append((LIGHT_DIRECTIONAL, -1, data, math.pi * R2 * float(LUMINANCE @ light.irradiance),
@@ -260,6 +267,26 @@ def light_power(scene: m.Scene, arrays: SceneArrays):
         else:
             raise TypeError(f"unknown light {type(light).__name__}")
     return rows
+
+
+def cone_terms(light):
+    """(radiance (3,), 1 - cos(half angle)) of a distant disc of the given irradiance.
+
+    E = L pi sin^2(alpha) for a uniform disc of angular radius alpha wholly above
+    the horizon of a surface facing it (the element-to-sphere configuration
+    factor sin^2(alpha) of Howell's catalogue, with sin alpha = r / d).
+    """
+    half = math.radians(light.angular_diameter) / 2.0
+    one_minus_cos = 2.0 * math.sin(half / 2.0) ** 2
+    return np.asarray(light.irradiance, float) / (math.pi * math.sin(half) ** 2), one_minus_cos
+
+
+def cone_sources(scene) -> list[int]:
+    """Indices in scene.lights of the distant discs listed in LightArrays.cones, in order
+    (directional lights with angular_diameter > 0 and some radiance)."""
+    return [i for i, light in enumerate(scene.lights)
+            if isinstance(light, m.DirectionalLight) and light.angular_diameter > 0.0
+            and np.any(np.asarray(light.irradiance) > 0.0)]
 
 
 _ENV_CACHE: dict = {}
@@ -294,9 +321,11 @@ def build_lights(scene: m.Scene, arrays: SceneArrays, strategy: str) -> LightArr
     emitter is then found by BSDF-sampled rays alone.
 
     ``light_data`` rows: surface emitter: radiance rgb; point: position,
-    intensity; directional: travel direction, irradiance; environment:
-    radiance; spot: position, intensity, axis, falloff scale s, offset o,
-    range (see spot_falloff).
+    intensity; directional: travel direction, irradiance; distant cone: travel
+    direction, radiance, 1 - cos(half angle); environment: radiance; spot:
+    position, intensity, axis, falloff scale s, offset o, range (see
+    spot_falloff).  Distant cones are also listed in ``cones`` (BSDF-sampled
+    rays that escape into one see its radiance, whatever the strategy).
     """
     rows = light_rows(scene, arrays, strategy)
     n = len(rows)
@@ -332,12 +361,21 @@ def build_lights(scene: m.Scene, arrays: SceneArrays, strategy: str) -> LightArr
                 env_pmf, env_marg, env_cond, _ = _env_tables(light)
             else:
                 env[:3] = light.radiance
+    pmf_of_source = {r[4]: pmf[i] for i, r in enumerate(rows) if r[0] == LIGHT_DISTANT_CONE}
+    cones = []
+    for src in cone_sources(scene):
+        radiance, omc = cone_terms(scene.lights[src])
+        row = np.zeros(8)
+        row[:3], row[3:6], row[6] = -np.asarray(scene.lights[src].direction, float), radiance, omc
+        row[7] = pmf_of_source.get(src, 0.0)
+        cones.append(row)
+    cones = np.array(cones, dtype=np.float64).reshape(-1, 8)
     from ..sampling.alias import build_alias
     prob, alias = build_alias(pmf) if n else (np.ones(0), np.zeros(0, np.int32))
     c = np.ascontiguousarray
     return LightArrays(light_type, light_prim, c(light_data), cdf, pmf, prim_pmf, env,
                        c(prob), c(alias.astype(np.int32)), env_image, c(env_pmf), c(env_marg),
-                       c(env_cond))
+                       c(env_cond), c(cones))
 
 
 def camera_array(scene: m.Scene) -> np.ndarray:

@@ -48,7 +48,7 @@ from ..materials.textures import is_textured, resolve_params
 from ..sampling.alias import alias_select
 from ..sampling.envmap import env_pdf, env_radiance, env_sample
 from ..sampling.filters import filter_offset
-from ..sampling.lights import pdf_emitter, sample_emitter
+from ..sampling.lights import pdf_distant_cone, pdf_emitter, sample_distant_cone, sample_emitter
 from ..sampling.rng import path_key, uniform
 from ..sampling.warp import sample_concentric_disk
 
@@ -61,6 +61,7 @@ LIGHT_POINT = 1
 LIGHT_DIRECTIONAL = 2
 LIGHT_ENVIRONMENT = 3
 LIGHT_SPOT = 4
+LIGHT_DISTANT_CONE = 5
 
 DIMS_CAMERA = 4
 DIMS_PER_VERTEX = 8
@@ -230,6 +231,10 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
     if ltype == LIGHT_DIRECTIONAL:
         return (-ld[0], -ld[1], -ld[2], ld[3], ld[4], ld[5], pmf, True,
                 -ld[0], -ld[1], -ld[2], math.inf, -1, li)
+    if ltype == LIGHT_DISTANT_CONE:
+        wx, wy, wz, pdf_c = sample_distant_cone(-ld[0], -ld[1], -ld[2], ld[6], u1, u2)
+        return (wx, wy, wz, ld[3], ld[4], ld[5], pmf * pdf_c, False,
+                wx, wy, wz, math.inf, -1, li)
     wx, wy, wz, pdf_e, er, eg, eb = env_sample(L.env, L.env_image, L.env_pmf, L.env_marg,
                                                L.env_cond, u1, u2)
     if not (pdf_e > 0.0):
@@ -327,6 +332,23 @@ def trace_path(S, L, cam, key, px, py, max_bounces, rr_start, strategy, mode, ti
             tcyc += cycles() - c0
         rays += 1
         if prim < 0:
+            for ci in range(L.cones.shape[0]):
+                cd = L.cones[ci]
+                pc = pdf_distant_cone(cd[0], cd[1], cd[2], cd[6], dx, dy, dz)
+                if pc > 0.0:
+                    if prev_delta or strategy == STRATEGY_BSDF:
+                        w = 1.0
+                    elif strategy == STRATEGY_NEE:
+                        w = 0.0
+                    else:
+                        w = power_heuristic(prev_pdf, cd[7] * pc)
+                    lr += tr * cd[3] * w
+                    lg += tg * cd[4] * w
+                    lb += tb * cd[5] * w
+                    if lay_on:
+                        gi = n_lights + ci         # the discs follow the table in lay_light
+                        add_layers(lay, lay_depth, lay_light[gi] if lay_light.shape[0] > gi else -1,
+                                   depth, tr * cd[3] * w, tg * cd[4] * w, tb * cd[5] * w)
             if has_env:
                 if prev_delta or strategy == STRATEGY_BSDF:
                     w = 1.0

@@ -403,3 +403,24 @@ def pdf_emitter(kind, g, area, mode, xx, xy, xz, yx, yy, yz, nx, ny, nz):
             if res[0]:
                 return 1.0 / res[1]
     return area_to_solid_angle(pdf_area(area), xx, xy, xz, yx, yy, yz, nx, ny, nz)
+
+
+# --- distant discs (directional lights of finite angular size) ------------------
+
+@inline
+def sample_distant_cone(ax, ay, az, one_minus_cos_max, u1, u2):
+    """Direction uniform in solid angle inside the cone of half-angle theta_max about the
+    unit axis a (toward the source).  Returns wx, wy, wz and the solid-angle pdf
+    1 / (2 pi (1 - cos theta_max)).  Pdf: pdf_distant_cone."""
+    lx, ly, lz = sample_uniform_cone(u1, u2, one_minus_cos_max)
+    wx, wy, wz = local_to_global(lx, ly, lz, ax, ay, az)
+    return wx, wy, wz, pdf_uniform_cone(one_minus_cos_max)
+
+
+@inline
+def pdf_distant_cone(ax, ay, az, one_minus_cos_max, wx, wy, wz):
+    """Solid-angle pdf of sample_distant_cone for the unit direction w: 1 / (2 pi (1 -
+    cos theta_max)) where 1 - a.w <= 1 - cos theta_max, else 0."""
+    if 1.0 - (ax * wx + ay * wy + az * wz) <= one_minus_cos_max:
+        return pdf_uniform_cone(one_minus_cos_max)
+    return 0.0

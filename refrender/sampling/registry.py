@@ -26,7 +26,8 @@ from .._jit import kernel
 from ..geometry.intersect import DISK, RECTANGLE, SPHERE, TRIANGLE, intersect_prim, surface_point
 from ..materials.bsdf import bsdf_pdf, bsdf_sample
 from .envmap import env_pdf, env_sample
-from .lights import MODE_AREA, MODE_SOLID_ANGLE, pdf_emitter, sample_area, sample_emitter
+from .lights import (MODE_AREA, MODE_SOLID_ANGLE, pdf_distant_cone, pdf_emitter, sample_area,
+                     sample_distant_cone, sample_emitter)
 
 
 # --- batch kernels ---------------------------------------------------------------
@@ -84,6 +85,22 @@ def batch_env_sample(env, img, pmf, marg, cond, u, distort, out_dir, out_pdf):
 def batch_env_pdf(env, img, pmf, dirs, out_pdf):
     for i in prange(dirs.shape[0]):
         out_pdf[i] = env_pdf(env, img, pmf, dirs[i, 0], dirs[i, 1], dirs[i, 2])
+
+
+@kernel(parallel=True)
+def batch_cone_sample(a, omc, u, distort, out_dir, out_pdf):
+    for i in prange(u.shape[0]):
+        wx, wy, wz, pdf = sample_distant_cone(a[0], a[1], a[2], omc, u[i, 0] ** distort, u[i, 1])
+        out_dir[i, 0] = wx
+        out_dir[i, 1] = wy
+        out_dir[i, 2] = wz
+        out_pdf[i] = pdf
+
+
+@kernel(parallel=True)
+def batch_cone_pdf(a, omc, dirs, out_pdf):
+    for i in prange(dirs.shape[0]):
+        out_pdf[i] = pdf_distant_cone(a[0], a[1], a[2], omc, dirs[i, 0], dirs[i, 1], dirs[i, 2])
 
 
 @kernel(parallel=True)
@@ -184,6 +201,18 @@ def uniform_env_case():
                        np.array([0.0, 0.0, 1.0]), -1.0)
 
 
+def distant_cone_case(name, axis, angular_diameter_deg):
+    """The distant-disc light sampler (a directional light with angular_diameter)."""
+    a = _unit(axis)
+    half = math.radians(angular_diameter_deg) / 2.0
+    omc = 2.0 * math.sin(half / 2.0) ** 2
+    cmin = math.cos(half)
+    return SamplerCase(name,
+                       lambda u, k, dd, pp: batch_cone_sample(a, omc, u, k, dd, pp),
+                       lambda dirs, pp: batch_cone_pdf(a, omc, dirs, pp),
+                       a, max(-1.0, cmin - 1e-3 * (1.0 - cmin)))
+
+
 def bsdf_case(name, mkind, params, normal, wo, front=True):
     """A (non-delta) BSDF sampler at a surface of the given normal, for outgoing wo.
     ``params`` is the material's parameter row (see materials/bsdf.py)."""
@@ -256,6 +285,8 @@ def registry():
                               np.array([0.1, 0.0, 0.0, 1.0, 0, 0, 0, 0, 0]), 4 * math.pi,
                               MODE_SOLID_ANGLE, np.array([0.0, 0.0, 0.0]), None))
     cases.append(uniform_env_case())
+    cases.append(distant_cone_case("distant disc 0.53 deg", [0.3, 0.9, -0.2], 0.53))
+    cases.append(distant_cone_case("distant disc 40 deg", [-0.5, 0.1, 0.8], 40.0))
     rng = np.random.default_rng(7)
     img = rng.gamma(0.6, 1.0, size=(16, 32, 3))
     img[3, 20] = 400.0                     # a bright sun-like pixel

@@ -296,6 +296,7 @@ def _light(spec: dict, path: tuple, files: FileLog | None = None) -> Light:
     if kind == "directional":
         return DirectionalLight(direction=unit(spec["direction"], path + ("direction",)),
                                 irradiance=vec3(spec["irradiance"]),
+                                angular_diameter=float(spec.get("angular_diameter", 0.0)),
                                 group=str(spec.get("group", "default")))
     return _environment(spec, path, files)
 

@@ -107,6 +107,7 @@ class DirectionalLight:
     direction: np.ndarray           # unit, the way the light travels
     irradiance: np.ndarray          # (3,) W m^-2 on a surface facing the light
     group: str = "default"
+    angular_diameter: float = 0.0   # degrees; > 0: a distant disc of radiance E / (pi sin^2(angle / 2))
 
 
 @dataclass(frozen=True, eq=False)

@@ -210,14 +210,14 @@ def cylinder_light(prim, matrix, log) -> list[dict]:
 
 
 def distant_light(prim, matrix, log) -> list[dict]:
-    """DistantLight -> a directional light of the same irradiance on a facing surface.
+    """DistantLight -> a directional light; with angle > 0, a distant disc of that
+    angular diameter (``angular_diameter``) and uniform radiance L.
 
-    Irradiance E = L * pi sin^2(theta_max) for a cone of half-angle theta_max =
-    angle / 2 (the disc source's closed form; E = L when angle = 0), with L the
-    radiance (value / (pi sin^2 theta_max) when normalized, so E = value).
-    A source of finite size is rendered as one direction: exact for the
-    irradiance of any unoccluded surface that sees the whole disc, but
-    shadows get no penumbra and glossy highlights are points.
+    The scene format gives the irradiance E on a surface facing the light:
+    E = L pi sin^2(theta_max) for theta_max = angle / 2 (the element-to-sphere
+    configuration factor sin^2(theta_max) of Howell's catalogue), E = L for
+    angle 0.  L is the light's value, divided by pi sin^2(theta_max) when
+    normalized (usdLux schema.usda), so then E = value.
     """
     angle = min(max(float(_input(prim, "angle", 0.53)), 0.0), 360.0)
     theta = math.radians(angle) / 2.0
@@ -228,11 +228,11 @@ def distant_light(prim, matrix, log) -> list[dict]:
     solid = math.pi * math.sin(theta) ** 2 if theta > 0.0 else 1.0
     irradiance = value if normalize else value * solid
     direction = matrix[:3, :3] @ np.array([0.0, 0.0, -1.0])
+    entry = {"type": "directional", "direction": (direction / np.linalg.norm(direction) + 0.0).tolist(),
+             "irradiance": _nonneg(irradiance)}
     if theta > 0.0:
-        log.approximate(prim, f"DistantLight angle {angle:g} degrees rendered as one direction "
-                        "(same irradiance; no penumbra)")
-    return [{"type": "directional", "direction": (direction / np.linalg.norm(direction) + 0.0).tolist(),
-             "irradiance": _nonneg(irradiance)}]
+        entry["angular_diameter"] = angle
+    return [entry]
 
 
 def _rotation_part(lin: np.ndarray) -> np.ndarray:
