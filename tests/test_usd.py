@@ -488,3 +488,40 @@ def test_cli_camera_path_and_info(tmp_path, capsys):
     assert "/S: Sphere -> sphere" in shown and "camera: /Cam" in shown
     rc, out = _cli(tmp_path, text, "--camera", "/Cam", name="ok.usda")
     assert rc == 0 and out.exists()
+
+
+def test_gprims_tessellation_areas_and_facing(tmp_path):
+    """Cube (exact: 6 s^2), Plane (exact, faces +axis), Cylinder (N facets: lateral area
+    2 N r sin(pi/N) h, caps N r^2 sin(2 pi/N) / 2, exact polygon formulas), all facing outward
+    (divergence theorem: sum of n A . centroid = 3 V > 0), and a Sphere under non-uniform scale."""
+    from refrender.scene import usd_geometry as G
+    stage = new_stage(tmp_path / "g.usda")
+    UsdGeom.Cube.Define(stage, "/W/Cube").CreateSizeAttr(2.0)
+    plane = UsdGeom.Plane.Define(stage, "/W/Plane")
+    plane.CreateAxisAttr("Y")
+    cyl = UsdGeom.Cylinder.Define(stage, "/W/Cyl")
+    cyl.CreateAxisAttr("X")
+    blob = UsdGeom.Sphere.Define(stage, "/W/Blob")
+    UsdGeom.XformCommonAPI(blob).SetScale((1.0, 2.0, 1.0))
+    UsdGeom.Capsule.Define(stage, "/W/Pill")
+    stage.Save()
+    objs = translate_stage(tmp_path / "g.usda", with_camera=False).document["objects"]
+
+    def area_and_volume(o):
+        p, t = np.array(o["positions"]), np.array(o["indices"])
+        a, b, c = p[t[:, 0]], p[t[:, 1]], p[t[:, 2]]
+        cr = np.cross(b - a, c - a)
+        return 0.5 * np.linalg.norm(cr, axis=1).sum(), np.einsum("ij,ij->", cr, a) / 6.0
+
+    cube, plane_o, cylinder, blob_o, pill = objs
+    assert area_and_volume(cube) == pytest.approx((24.0, 8.0))
+    p, t = np.array(plane_o["positions"]), np.array(plane_o["indices"])
+    assert np.cross(p[t[0, 1]] - p[t[0, 0]], p[t[0, 2]] - p[t[0, 0]])[1] > 0       # +Y
+    n, r, h = G.ROUND_SEGMENTS, 1.0, 2.0
+    area, vol = area_and_volume(cylinder)
+    assert area == pytest.approx(2 * n * r * math.sin(math.pi / n) * h + n * r * r * math.sin(2 * math.pi / n))
+    assert vol == pytest.approx(0.5 * n * r * r * math.sin(2 * math.pi / n) * h)
+    assert np.ptp(np.array(cylinder["positions"])[:, 0]) == pytest.approx(2.0)     # along X
+    assert blob_o["shape"] == "triangles" and np.ptp(np.array(blob_o["positions"])[:, 1]) == pytest.approx(4.0)
+    assert area_and_volume(blob_o)[1] > 0 and area_and_volume(pill)[1] > 0
+    assert np.ptp(np.array(pill["positions"])[:, 2]) == pytest.approx(2.0)   # height 1 + 2 radii 0.5

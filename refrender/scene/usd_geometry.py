@@ -146,7 +146,10 @@ def _lathe(profile: list[tuple[float, float]], segments: int) -> tuple[np.ndarra
     for lo, hi in zip(ring_ids[:-1], ring_ids[1:]):
         for j in range(segments):
             a, b, c, d = lo[j], lo[(j + 1) % segments], hi[(j + 1) % segments], hi[j]
-            tris += [(a, b, c), (a, c, d)]
+            if a != b:                 # not at a pole
+                tris.append((a, b, c))
+            if c != d:
+                tris.append((a, c, d))
     return np.array(points, dtype=np.float64), np.array(tris, dtype=np.int64)
 
 

@@ -250,23 +250,25 @@ def dome_light(prim, matrix, pole_fix: np.ndarray, log, resolve_asset) -> list[d
     and adds to ``rotate_degrees``.
     """
     value, _ = light_scalar(prim)          # normalize is ignored for domes (schema)
+    texture = _input(prim, "texture:file", None)
+    fmt = str(_input(prim, "texture:format", "automatic"))
+    if texture is None or not str(texture.path):
+        return [{"type": "environment", "radiance": _nonneg(value)}]     # uniform: orientation moot
+    if fmt not in ("automatic", "latlong"):
+        log.ignore(prim, f"DomeLight texture:format {fmt} (only latlong maps): a uniform dome of the "
+                   "light's colour")
+        return [{"type": "environment", "radiance": _nonneg(value)}]
     rot = _rotation_part(matrix[:3, :3]) @ pole_fix
     if not np.allclose(rot[1], [0.0, 1.0, 0.0], atol=1e-6):
         from ._util import one_line
         from ..errors import SceneError
         raise SceneError(one_line(f"{prim.GetPath()}: DomeLight orientation: only rotations about the "
-                                  "up axis are supported (the environment's pole is the world's +Y)"))
+                                  "up axis are supported (the map's pole must be the world's up axis; "
+                                  "on a Z-up stage rotate a DomeLight by 90 degrees about X, or use "
+                                  "DomeLight_1)"))
     degrees = (math.degrees(math.atan2(rot[0, 2], rot[0, 0])) + 180.0) % 360.0
-    texture = _input(prim, "texture:file", None)
-    fmt = str(_input(prim, "texture:format", "automatic"))
-    if texture is not None and str(texture.path):
-        if fmt not in ("automatic", "latlong"):
-            log.ignore(prim, f"DomeLight texture:format {fmt} (only latlong maps): uniform dome")
-        else:
-            path = resolve_asset(texture, prim, "inputs:texture:file")
-            return [{"type": "environment", "image": path, "scale": _nonneg(value),
-                     "rotate_degrees": degrees}]
-    return [{"type": "environment", "radiance": _nonneg(value)}]
+    path = resolve_asset(texture, prim, "inputs:texture:file")
+    return [{"type": "environment", "image": path, "scale": _nonneg(value), "rotate_degrees": degrees}]
 
 
 # ----------------------------------------------------------------------------- materials
