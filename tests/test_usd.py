@@ -439,10 +439,13 @@ def test_preview_surface_mapping_table(tmp_path):
         q.CreateDoubleSidedAttr(True)
         UsdShade.MaterialBindingAPI.Apply(q.GetPrim()).Bind(mat)
     stage.Save()
-    with pytest.warns(UserWarning, match="SomeVendorSurface"):
-        from refrender.scene.usd import load_usd_scene  # noqa: F401
+    import warnings
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         tr = translate_stage(tmp_path / "p.usda", with_camera=False)
         tr.log.warn()
+    shaders = [str(w.message) for w in caught if "SomeVendorSurface" in str(w.message)]
+    assert len(shaders) == 1, [str(w.message) for w in caught]      # one warning naming the id
     m = tr.document["materials"]
     assert m["/W/Looks/Default"] == {"type": "metallic_roughness", "base_color": pytest.approx([0.18] * 3),
                                      "metallic": 0.0, "roughness": 0.5}
@@ -525,3 +528,19 @@ def test_gprims_tessellation_areas_and_facing(tmp_path):
     assert blob_o["shape"] == "triangles" and np.ptp(np.array(blob_o["positions"])[:, 1]) == pytest.approx(4.0)
     assert area_and_volume(blob_o)[1] > 0 and area_and_volume(pill)[1] > 0
     assert np.ptp(np.array(pill["positions"])[:, 2]) == pytest.approx(2.0)   # height 1 + 2 radii 0.5
+
+
+def test_shaping_and_shadow_apis_are_ignored_with_one_warning_each(tmp_path):
+    import warnings
+    stage = new_stage(tmp_path / "s.usda")
+    light = UsdLux.DiskLight.Define(stage, "/W/Spot")
+    UsdLux.ShapingAPI.Apply(light.GetPrim()).CreateShapingConeAngleAttr(20.0)
+    UsdLux.ShadowAPI.Apply(light.GetPrim()).CreateShadowEnableAttr(False)
+    stage.Save()
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        tr = translate_stage(tmp_path / "s.usda", with_camera=False)
+        tr.log.warn()
+    text = [str(w.message) for w in caught]
+    assert sum("ShapingAPI" in t for t in text) == 1 and sum("shadow and light-linking" in t for t in text) == 1
+    assert tr.document["objects"][0]["shape"] == "disk"

@@ -94,11 +94,15 @@ class ImportLog:
             ids = sorted({i for v in self.shaders.values() for i in v})
             warnings.warn(f"{len(self.shaders)} material(s) with shaders other than UsdPreviewSurface "
                           f"rendered as grey Lambertian: {', '.join(ids)}", stacklevel=3)
-        links = [s for s in self.ignored if "ShadowAPI" in s or "light linking" in s]
+        links = [s for s in self.ignored if "ShadowAPI" in s or "linking" in s]
         if links:
             warnings.warn(f"shadow and light-linking controls ignored on {len(links)} light(s) "
                           f"(first: {links[0]})", stacklevel=3)
-        rest = len(self.ignored) - len(links) + len(self.approximated)
+        shaping = [s for s in self.ignored if "ShapingAPI" in s]
+        if shaping:
+            warnings.warn(f"ShapingAPI (cone angle, softness, focus) ignored on {len(shaping)} light(s): "
+                          f"they emit as unshaped lights (first: {shaping[0]})", stacklevel=3)
+        rest = len(self.ignored) - len(links) - len(shaping) + len(self.approximated)
         if rest:
             warnings.warn(f"{rest} USD feature(s) ignored or approximated (list them with "
                           "'refrender info STAGE')", stacklevel=3)
@@ -476,9 +480,10 @@ class _Translator:
     # -- lights
     def _light(self, prim, m) -> None:
         lux = self.pxr.UsdLux
-        for api, what in (("ShadowAPI", "ShadowAPI"), ("ShapingAPI", "ShapingAPI")):
-            if prim.HasAPI(getattr(lux, api)):
-                self.log.ignore(prim, f"{what} (cone, softness and shadow controls are not modelled)")
+        if prim.HasAPI(lux.ShadowAPI):
+            self.log.ignore(prim, "ShadowAPI (shadow colour, distance and falloff are not modelled)")
+        if prim.HasAPI(lux.ShapingAPI):
+            self.log.ignore(prim, "ShapingAPI (cone angle and softness are not modelled)")
         if prim.HasAPI(lux.LightAPI):
             light = lux.LightAPI(prim)
             coll = light.GetLightLinkCollectionAPI()

@@ -73,12 +73,10 @@ def blackbody_rgb(kelvin: float) -> np.ndarray:
 # ----------------------------------------------------------------------------- lights
 
 def _input(light_prim, name, default):
+    """The light's ``inputs:<name>`` (authored or the schema's fallback), else *default*."""
     attr = light_prim.GetAttribute(f"inputs:{name}")
-    if attr and attr.HasAuthoredValue() or (attr and attr.Get() is not None):
-        value = attr.Get()
-        if value is not None:
-            return value
-    return default
+    value = attr.Get() if attr else None
+    return default if value is None else value
 
 
 def light_scalar(prim) -> tuple[np.ndarray, bool]:
