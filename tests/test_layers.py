@@ -175,3 +175,19 @@ def test_first_hit_layers_of_an_orthographic_view(tmp_path):
                "albedo.variance.G", "object_id.index", "material_id.index"):
         assert ch in img.channels, ch
     np.testing.assert_allclose(img.channels["depth.Z"], 1.5, rtol=1e-7)
+
+
+@pytest.mark.parametrize("strategy", ["mis", "bsdf"])
+def test_distant_disc_has_its_light_group(strategy):
+    """A directional light with angular_diameter (a distant disc) found by escaping rays goes
+    to its own group's layer, also under strategy bsdf where the light table omits it."""
+    doc = _doc(spp=8, sky=False, window=False)
+    doc["lights"].append({"type": "directional", "direction": [0.3, -1.0, -0.4], "irradiance": [3, 3, 3],
+                          "angular_diameter": 30.0, "group": "sun"})
+    res = refrender.render(refrender.load_scene(doc), strategy=strategy)
+    slots = res.layer_slots
+    groups = [n for n in slots if n.startswith("light.")]
+    assert "light.sun" in groups
+    total = sum(res.layer_sum[:, :, slots.index(n), :] for n in groups)
+    np.testing.assert_allclose(total, res.sum, rtol=1e-12, atol=1e-13 * np.abs(res.sum).max())
+    assert res.layer_sum[:, :, slots.index("light.sun")].sum() > 0.05 * res.sum.sum()
