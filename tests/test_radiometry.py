@@ -123,8 +123,9 @@ def test_distant_disc(case, strategy):
 
 
 def test_distant_disc_factor_matches_the_sphere_table():
-    """A 60-degree disc at 75 degrees subtends the cone of the tabulated sphere r/d = 1/2 at
-    75 degrees (validation-references 1c: F = 0.0704104)."""
+    """A 60-degree disc at 75 degrees subtends the cone of the sphere r/d = 1/2 at 75 degrees,
+    partly below the horizon: F = 0.0704104, the tabulated value above (Howell, A Catalog of
+    Radiation Heat Transfer Configuration Factors, element to sphere)."""
     case = _DISCS[2]
     L = 3.0 / (math.pi * 0.25)
     assert case.expected / (V.RHO * L) == pytest.approx(0.0704104, rel=5e-6)

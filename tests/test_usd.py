@@ -544,3 +544,16 @@ def test_shaping_and_shadow_apis_are_ignored_with_one_warning_each(tmp_path):
     text = [str(w.message) for w in caught]
     assert sum("ShapingAPI" in t for t in text) == 1 and sum("shadow and light-linking" in t for t in text) == 1
     assert tr.document["objects"][0]["shape"] == "disk"
+
+
+def test_cli_film_and_set_edit_the_translated_stage(tmp_path):
+    """--film and --set apply to the document a stage translates into, as for a JSON scene."""
+    from refrender.io import read_exr
+    _twin_stage(tmp_path / "twin.usda")
+    out = tmp_path / "o.exr"
+    rc = main(["render", str(tmp_path / "twin.usda"), "-o", str(out), "--spp", "2", "--quiet",
+               "--film", "6x4", "--set", "materials.grey.albedo=[0.25,0.25,0.25]"])
+    assert rc == 2                                        # no material named grey: one-line error
+    rc = main(["render", str(tmp_path / "twin.usda"), "-o", str(out), "--spp", "2", "--quiet",
+               "--film", "6x4", "--set", "render.seed=5"])
+    assert rc == 0 and read_exr(out).shape[:2] == (4, 6)

@@ -227,10 +227,16 @@ def _run(args) -> int:
     if str(args.checkpoint_every).strip().lower() not in ("off", "none", "never", "0"):
         every = parse_duration(args.checkpoint_every, "--checkpoint-every")
     if args.assignments or args.film is not None or args.crop is not None:
+        from ..scene.usd import is_usd, load_usd_scene
         if is_gltf(args.scene):
-            raise RenderError("--set/--film/--crop: apply to a JSON scene (for glTF use --film-height)")
-        from ..scene.overrides import load_with_overrides
-        scene = load_with_overrides(args.scene, args.assignments, film=args.film, crop=args.crop)
+            raise RenderError("--set/--film/--crop: apply to a JSON scene or a USD stage (for glTF use "
+                              "--film-height)")
+        if is_usd(args.scene):
+            scene = load_usd_scene(args.scene, camera=args.camera, film_height=args.film_height,
+                                   assignments=args.assignments, film=args.film, crop=args.crop)
+        else:
+            from ..scene.overrides import load_with_overrides
+            scene = load_with_overrides(args.scene, args.assignments, film=args.film, crop=args.crop)
     else:
         scene = load_any_scene(args)
     prev = _previous(state, args)

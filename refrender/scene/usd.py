@@ -651,8 +651,12 @@ def translate_stage(path, *, camera: str | None = None, with_camera: bool = True
                        cameras=[str(c.GetPath()) for c in t.cameras], camera=chosen)
 
 
-def load_usd_scene(path, *, camera: str | None = None, film_height: int | None = None, warn: bool = True):
+def load_usd_scene(path, *, camera: str | None = None, film_height: int | None = None, warn: bool = True,
+                   assignments=(), film=None, crop=None):
     """Translate a stage (:func:`translate_stage`) and load it like a JSON scene.
+
+    *assignments*, *film* and *crop* edit the translated document as
+    ``--set``/``--film``/``--crop`` edit a JSON scene (refrender.scene.overrides).
 
     Texture paths in the document are absolute; the scene hash covers the
     document (all geometry is inline) and every texture file's bytes.
@@ -661,7 +665,11 @@ def load_usd_scene(path, *, camera: str | None = None, film_height: int | None =
     tr = translate_stage(path, camera=camera, film_height=film_height)
     if warn:
         tr.log.warn()
-    scene = load_scene(tr.document, base_dir=Path(path).resolve().parent)
+    doc = tr.document
+    if assignments or film is not None or crop is not None:
+        from .overrides import apply_overrides
+        doc = apply_overrides(doc, assignments, film=film, crop=crop)
+    scene = load_scene(doc, base_dir=Path(path).resolve().parent)
     return replace(scene, source_path=Path(path).resolve())
 
 
