@@ -15,6 +15,7 @@ import math
 import numpy as np
 
 from ..color import SPACES, conversion
+from .diagnose import _golden
 
 #: readable names of the working spaces
 SPACE_NAMES = {"linear_rec709": "Rec. 709", "acescg": "ACEScg", "linear_p3_d65": "P3-D65",
@@ -41,23 +42,6 @@ def blur(image, sigma: float, *, squared_weights: bool = False) -> np.ndarray:
         k = k * k
     img = np.ascontiguousarray(image, dtype=np.float64)
     return cv2.sepFilter2D(img, cv2.CV_64F, k, k, borderType=cv2.BORDER_REPLICATE)
-
-
-def _golden(f, lo, hi, iters=30):
-    g = (math.sqrt(5) - 1) / 2
-    a, b = lo, hi
-    c, d = b - g * (b - a), a + g * (b - a)
-    fc, fd = f(c), f(d)
-    for _ in range(iters):
-        if fc < fd:
-            b, d, fd = d, c, fc
-            c = b - g * (b - a)
-            fc = f(c)
-        else:
-            a, c, fc = c, d, fd
-            d = a + g * (b - a)
-            fd = f(d)
-    return (a + b) / 2
 
 
 def fit_blur(r, fit, sel):
