@@ -193,21 +193,7 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
         sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
         return (wx, wy, wz, em[0], em[1], em[2], pmf * pdf_dir, False,
                 sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), lp, li)
-    if ltype == LIGHT_POINT:
-        wx = ld[0] - x
-        wy = ld[1] - y
-        wz = ld[2] - z
-        d2 = wx * wx + wy * wy + wz * wz
-        dist = math.sqrt(d2)
-        if not (dist > 0.0):
-            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
-        sdx = ld[0] - sx
-        sdy = ld[1] - sy
-        sdz = ld[2] - sz
-        sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
-        return (wx / dist, wy / dist, wz / dist, ld[3] / d2, ld[4] / d2, ld[5] / d2, pmf, True,
-                sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), -1, li)
-    if ltype == LIGHT_SPOT:
+    if ltype == LIGHT_POINT or ltype == LIGHT_SPOT:
         wx = ld[0] - x
         wy = ld[1] - y
         wz = ld[2] - z
@@ -218,15 +204,19 @@ def sample_light(S, L, mode, x, y, z, sx, sy, sz, u_sel, u1, u2):
         wx /= dist
         wy /= dist
         wz /= dist
-        fall = spot_factor(ld, -wx, -wy, -wz, dist)
-        if not (fall > 0.0):
-            return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
+        if ltype == LIGHT_POINT:
+            er, eg, eb = ld[3] / d2, ld[4] / d2, ld[5] / d2
+        else:
+            fall = spot_factor(ld, -wx, -wy, -wz, dist)
+            if not (fall > 0.0):
+                return 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, False, 0.0, 0.0, 1.0, 0.0, -1, li
+            fall /= d2
+            er, eg, eb = ld[3] * fall, ld[4] * fall, ld[5] * fall
         sdx = ld[0] - sx
         sdy = ld[1] - sy
         sdz = ld[2] - sz
         sd = math.sqrt(sdx * sdx + sdy * sdy + sdz * sdz)
-        fall /= d2
-        return (wx, wy, wz, ld[3] * fall, ld[4] * fall, ld[5] * fall, pmf, True,
+        return (wx, wy, wz, er, eg, eb, pmf, True,
                 sdx / sd, sdy / sd, sdz / sd, sd * (1.0 - SHADOW_SHORTEN), -1, li)
     if ltype == LIGHT_DIRECTIONAL:
         return (-ld[0], -ld[1], -ld[2], ld[3], ld[4], ld[5], pmf, True,
