@@ -12,7 +12,6 @@ The comparison is :func:`refrender.compare.compare` and the gates are
 """
 from __future__ import annotations
 
-import math
 import shlex
 import subprocess
 import sys
@@ -20,6 +19,7 @@ import tempfile
 import time
 from pathlib import Path
 
+from ..compare.report import _clean
 from ..errors import RefrenderError
 from .cache import ReferenceCache
 from .spec import Case, Suite
@@ -88,14 +88,8 @@ def summary_metrics(rep: dict) -> dict:
 
 
 def _num(v):
-    if v is None:
-        return None
-    v = float(v)
-    if math.isnan(v):
-        return None
-    if math.isinf(v):
-        return "inf" if v > 0 else "-inf"
-    return v
+    """A metric as JSON writes it (NaN -> None, infinities as strings), as the diff report does."""
+    return None if v is None else _clean(float(v))
 
 
 def run_case(case: Case, suite: Suite, cache: ReferenceCache, *, work: Path, report_dir: Path | None,
